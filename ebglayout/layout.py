@@ -1,0 +1,175 @@
+"""The layout object and the one pipeline that builds it.
+
+``build_layout(spec)`` runs path -> placement (or fold) -> cell builders ->
+board polygons -> traces -> crossings and returns a frozen ``Layout``.  Checks,
+estimates and every exporter read this object; none of them re-derives geometry.
+All polygons are valid shapely geometries on the 1 nm grid with sharp corners.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from shapely.geometry import LineString, MultiPolygon, Polygon
+from shapely.ops import unary_union
+
+from .cells import BUILDERS
+from .crossing import Crossing, find_crossings
+from .fold import Turn, fold
+from .path import offset_pieces, polyline_of, to_board, validate_centre_line
+from .placement import place_row
+from .spec import Arc, FilterSpec, Line
+from .units import GRID_MM
+
+ROLES = ("slot", "patch", "bridge", "outline")
+"""Per plane layer: copper removed, patch copper, bridge copper, and the cut's outer edge."""
+
+
+@dataclass(frozen=True)
+class PlacedCell:
+    """One cell in board coordinates."""
+
+    index: int
+    centre: tuple[float, float]
+    rotation_deg: float
+    size: tuple[float, float]
+    patch: Polygon
+    bridges: tuple[Polygon, ...]
+    outer: Polygon
+
+
+@dataclass(frozen=True)
+class PlaneCut:
+    """What one plane layer gets: the four role geometries."""
+
+    layer: str
+    slot: MultiPolygon
+    patch: MultiPolygon
+    bridge: MultiPolygon
+    outline: MultiPolygon
+
+    def role(self, name: str) -> MultiPolygon:
+        return getattr(self, name)
+
+
+@dataclass(frozen=True)
+class Trace:
+    """One trace of the pair: its centre-line and its copper polygon."""
+
+    polarity: str
+    net: str
+    layer: str
+    width: float
+    centreline: LineString
+    polygon: Polygon
+
+
+@dataclass(frozen=True)
+class Layout:
+    """Everything the engine built for one filter."""
+
+    spec: FilterSpec
+    cells: tuple[PlacedCell, ...]
+    cuts: tuple[PlaneCut, ...]
+    traces: tuple[Trace, Trace]
+    centreline: LineString
+    route: tuple[Line | Arc, ...]
+    route_generated: bool
+    turns: tuple[Turn, ...]
+    crossings: tuple[Crossing, ...]
+
+    def cut(self, layer: str) -> PlaneCut:
+        return next(c for c in self.cuts if c.layer == layer)
+
+    def trace(self, polarity: str) -> Trace:
+        return next(t for t in self.traces if t.polarity == polarity)
+
+    def full_crossings(self, layer: str, polarity: str) -> list[Crossing]:
+        return [c for c in self.crossings if c.layer == layer and c.polarity == polarity and c.kind == "full"]
+
+
+def as_multipolygon(geom) -> MultiPolygon:
+    """Snap to the grid, keep only areas, and return a normalised MultiPolygon (stable vertex order)."""
+    geom = shapely.set_precision(geom, GRID_MM)
+    polys: list[Polygon] = []
+    for part in getattr(geom, "geoms", [geom]):
+        if isinstance(part, Polygon) and not part.is_empty:
+            polys.append(part)
+        elif isinstance(part, MultiPolygon):
+            polys.extend(part.geoms)
+    return shapely.normalize(MultiPolygon(polys))
+
+
+def place_polygon(poly: Polygon, centre: tuple[float, float], heading: float) -> Polygon:
+    """Rotate a local cell polygon by ``heading`` and move it to ``centre`` on the 1 nm grid."""
+    shell = to_board(np.asarray(poly.exterior.coords), centre, heading)
+    holes = [to_board(np.asarray(r.coords), centre, heading) for r in poly.interiors]
+    return Polygon(shell, holes)
+
+
+def build_layout(spec: FilterSpec) -> Layout:
+    """The whole engine: spec in, layout out.  Raises SpecError/PlacementError on what cannot be built."""
+    centre_line = validate_centre_line(spec.path, spec.trace_offset, spec.pair_width)
+    turns: tuple[Turn, ...] = ()
+    route, generated = spec.path, False
+    if spec.style == "folded":
+        folded = fold(spec, centre_line)
+        placements, route, turns, generated = folded.cells, folded.pieces, folded.turns, folded.generated
+        if generated:
+            centre_line = validate_centre_line(route, spec.trace_offset, spec.pair_width)
+    else:
+        placements = place_row(spec, centre_line)
+
+    builder = BUILDERS[spec.style]
+    cells = []
+    for cp in placements:
+        shape = builder(spec, cp.size)
+        centre = tuple(float(v) for v in np.round(np.asarray(cp.centre) / GRID_MM) * GRID_MM)
+        cells.append(PlacedCell(
+            index=cp.index, centre=centre, rotation_deg=cp.rotation_deg, size=cp.size,
+            patch=place_polygon(shape.patch, centre, cp.heading),
+            bridges=tuple(place_polygon(b, centre, cp.heading) for b in shape.bridges),
+            outer=place_polygon(shape.outer, centre, cp.heading),
+        ))
+
+    patch = as_multipolygon(unary_union([c.patch for c in cells]))
+    bridge = as_multipolygon(unary_union([b for c in cells for b in c.bridges]))
+    outline = as_multipolygon(unary_union([c.outer for c in cells]))
+    slot = as_multipolygon(outline.difference(unary_union([patch, bridge])))
+    cuts = tuple(PlaneCut(layer, slot, patch, bridge, outline) for layer in spec.plane_layers)
+
+    centre = polyline_of(route)
+    traces = tuple(_trace(spec, route, polarity) for polarity in ("P", "N"))
+    crossings = tuple(c for cut in cuts for t in traces for c in find_crossings(t.centreline, t.polarity, t.width, cut, centre))
+    return Layout(spec, tuple(cells), cuts, traces, centre, route, generated, turns, crossings)
+
+
+def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Trace:
+    sign = 1.0 if polarity == "P" else -1.0
+    line = offset_pieces(route, sign * spec.trace_offset)
+    polygon = line.buffer(spec.pair_width / 2, cap_style="flat", join_style="mitre", mitre_limit=100.0)
+    polygon = as_multipolygon(polygon)
+    poly = max(polygon.geoms, key=lambda p: p.area)
+    net = spec.nets[0] if polarity == "P" else spec.nets[1]
+    return Trace(polarity, net, spec.pair_layer, spec.pair_width, line, poly)
+
+
+def route_length_difference(layout: Layout) -> float:
+    """Total P-minus-N centre-line length, measured on the traces (mm)."""
+    return layout.trace("P").centreline.length - layout.trace("N").centreline.length
+
+
+def effective_permittivity(spec: FilterSpec) -> float:
+    """Permittivity that sets the delay of the traces: er for stripline, a rough microstrip value otherwise.
+
+    Microstrip: (er + 1) / 2 is the thin-strip limit of the quasi-static
+    effective permittivity (Hammerstad and Jensen, 1980; value from memory).
+    """
+    return spec.er if len(spec.plane_layers) == 2 else (spec.er + 1) / 2
+
+
+def skew_ps(length_mm: float, er_eff: float) -> float:
+    """Delay of ``length_mm`` of line at ``er_eff``: t = L * sqrt(er_eff) / c."""
+    return abs(length_mm) * 1e-3 * math.sqrt(er_eff) / 299_792_458.0 * 1e12

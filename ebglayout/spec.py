@@ -1,0 +1,527 @@
+"""Filter spec: one declarative parameter table, a TOML reader and the frozen spec object.
+
+The table ``PARAMETERS`` drives the reader, the CLI's ``params`` listing and the
+README's parameter list, so a key is described in one place only.  Lengths are
+mm inside; the file's ``units`` (or a unit on the value itself) is applied here.
+"""
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import SpecError
+from .units import LENGTH_UNITS_MM, format_mm, parse_frequency, parse_length
+
+STYLES = ("straight", "folded", "bridged")
+MAX_LENGTH_MM = 1000.0
+"""No board dimension is larger than a metre; anything beyond is a unit mistake."""
+
+REQUIRED = object()
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """One spec key: dotted name, value kind, default (or REQUIRED) and a one-line description."""
+
+    key: str
+    kind: str
+    default: Any
+    help: str
+
+
+PARAMETERS: tuple[Parameter, ...] = (
+    Parameter("name", "text", None, "filter name used for output files (default: the spec file's stem)"),
+    Parameter("units", "text", "mm", "unit of bare numbers: mm, um, mil, thou, in, cm"),
+    Parameter("target", "frequency", None, "notch target: a frequency (\"8GHz\") or an NRZ data rate "
+              "(\"16Gbps\" targets 16 GHz, the second harmonic of the 8 GHz fundamental)"),
+    Parameter("pair.width", "length", REQUIRED, "width of each trace"),
+    Parameter("pair.spacing", "length", REQUIRED, "edge-to-edge gap between the two traces"),
+    Parameter("pair.path", "path", REQUIRED, "centre-line: [[x,y],...] with {arc=[[x1,y1],[xm,ym],[x2,y2]]} items for arcs"),
+    Parameter("pair.layer", "text", "F.Cu", "copper layer the pair is routed on"),
+    Parameter("pair.nets", "nets", ("P", "N"), "net names [positive, negative]; the positive trace runs on the left of the path"),
+    Parameter("plane.layers", "layers", ("In1.Cu",), "plane layer(s) that get the cut; two layers = stripline, same cut in both"),
+    Parameter("plane.net", "text", "GND", "net of the reference plane"),
+    Parameter("plane.outline", "points", None, "plane/board outline polygon [[x,y],...] used by the edge checks"),
+    Parameter("cut.style", "choice", "straight", "cell style: " + " | ".join(STYLES)),
+    Parameter("cut.patch", "size", None, "patch size [along the path, across the path]"),
+    Parameter("cut.patches", "sizes", None, "one [along, across] per cell, for staggered cells (replaces patch and count)"),
+    Parameter("cut.count", "int", 1, "number of cells in the row"),
+    Parameter("cut.slot", "length", REQUIRED, "slot (etched gap) width around each patch"),
+    Parameter("cut.web", "length", 0.0, "plane copper between neighbouring cells' slots; 0 = neighbours share one slot"),
+    Parameter("cut.start", "length", None, "arc length along the path where the first cell's slot begins "
+              "(default: centred on the longest straight run that fits)"),
+    Parameter("cut.passes", "int", 1, "folded: how many times the pair crosses the patch row"),
+    Parameter("cut.lane_gap", "length", None, "folded: edge-to-edge gap between neighbouring passes "
+              "(default max(3 x width, 2 x spacing), common practice against self-crosstalk)"),
+    Parameter("cut.turn_clearance", "length", None, "folded: straight run between the outer slot edge and a U-turn "
+              "(default one lane pitch)"),
+    Parameter("cut.bridge.width", "length", None, "bridged: width of each bridge"),
+    Parameter("cut.bridge.length", "length", None, "bridged: length of each bridge (>= slot; longer pockets the patch)"),
+    Parameter("cut.bridge.per_side", "int", 1, "bridged: bridges on each side the pair does not cross"),
+    Parameter("stackup.er", "number", REQUIRED, "relative permittivity of the dielectric between the cut plane and the next plane"),
+    Parameter("stackup.h", "length", REQUIRED, "thickness of that dielectric"),
+    Parameter("stackup.er_tolerance", "number", 0.05, "relative tolerance of er for the estimate sweep (0.05 = +-5 %)"),
+    Parameter("stackup.h_tolerance", "number", 0.10, "relative tolerance of h for the estimate sweep (0.10 = +-10 %)"),
+    Parameter("rules.min_slot", "length", 0.1, "least slot width the fab can etch"),
+    Parameter("rules.min_copper", "length", 0.1, "least copper neck (web, bridge, patch) the fab can hold"),
+    Parameter("rules.corner_margin", "length", 0.4, "least distance from a trace crossing to a patch corner"),
+    Parameter("rules.min_angle", "number", 80.0, "least angle in degrees between a trace and the slot edge it crosses"),
+    Parameter("rules.crossings", "int", None, "exact number of full slot crossings required per trace"),
+    Parameter("rules.min_crossings", "int", 2, "least number of full slot crossings per trace when crossings is not given"),
+    Parameter("rules.symmetry", "length", 0.005, "largest P/N offset in arc length between paired crossings"),
+    Parameter("rules.skew_limit_ps", "number", 1.0, "largest P/N delay difference the cut and a folded route may add, in ps"),
+    Parameter("rules.bridge_keep", "length", None, "least distance from a bridge to a trace (default 3 x stackup.h)"),
+    Parameter("rules.edge_clearance", "length", 0.5, "least distance from the cut to the plane outline"),
+    Parameter("rules.target_tolerance", "number", 0.15, "relative band around target the light notch check accepts"),
+    Parameter("gds", "layermap", None, "GDSII layer map: {\"In1.Cu/slot\" = [layer, datatype], ...}"),
+    Parameter("obstacles.tracks", "tracks", (), "other copper: [{path=[[x,y],...], width=, layer=, net=}]"),
+    Parameter("obstacles.vias", "vias", (), "vias and pads: [{at=[x,y], diameter=, net=}] (through all layers)"),
+)
+PARAMETER_BY_KEY = {p.key: p for p in PARAMETERS}
+_GROUPS = {"pair", "plane", "cut", "stackup", "rules", "obstacles", "cut.bridge"}
+
+
+@dataclass(frozen=True)
+class Line:
+    """Straight path piece from ``start`` to ``end`` (mm)."""
+
+    start: tuple[float, float]
+    end: tuple[float, float]
+
+
+@dataclass(frozen=True)
+class Arc:
+    """Circular path piece through three points (mm)."""
+
+    start: tuple[float, float]
+    mid: tuple[float, float]
+    end: tuple[float, float]
+
+
+@dataclass(frozen=True)
+class TrackObstacle:
+    points: tuple[tuple[float, float], ...]
+    width: float
+    layer: str
+    net: str = ""
+
+
+@dataclass(frozen=True)
+class ViaObstacle:
+    at: tuple[float, float]
+    diameter: float
+    net: str = ""
+
+
+@dataclass(frozen=True)
+class FilterSpec:
+    """A validated filter spec, all lengths in mm, all frequencies in Hz."""
+
+    name: str
+    pair_width: float
+    pair_spacing: float
+    path: tuple[Line | Arc, ...]
+    pair_layer: str
+    nets: tuple[str, str]
+    plane_layers: tuple[str, ...]
+    plane_net: str
+    plane_outline: tuple[tuple[float, float], ...] | None
+    style: str
+    patches: tuple[tuple[float, float], ...]
+    slot: float
+    web: float
+    start: float | None
+    passes: int
+    lane_gap: float
+    turn_clearance: float
+    bridge_width: float | None
+    bridge_length: float | None
+    bridges_per_side: int
+    er: float
+    h: float
+    er_tolerance: float
+    h_tolerance: float
+    min_slot: float
+    min_copper: float
+    corner_margin: float
+    min_angle: float
+    crossings: int | None
+    min_crossings: int
+    symmetry: float
+    skew_limit_ps: float
+    bridge_keep: float
+    edge_clearance: float
+    target_tolerance: float
+    target_hz: float | None
+    gds_layers: tuple[tuple[str, int, int], ...] = ()
+    track_obstacles: tuple[TrackObstacle, ...] = ()
+    via_obstacles: tuple[ViaObstacle, ...] = ()
+    echo: dict = field(default_factory=dict, compare=False, hash=False)
+
+    @property
+    def trace_offset(self) -> float:
+        """Distance from the centre-line to each trace's centre."""
+        return (self.pair_width + self.pair_spacing) / 2
+
+    @property
+    def count(self) -> int:
+        return len(self.patches)
+
+    @property
+    def lane_pitch(self) -> float:
+        """Centre-to-centre distance of neighbouring passes of a folded route."""
+        return 2 * self.pair_width + self.pair_spacing + self.lane_gap
+
+
+def load_spec(path: str | Path) -> FilterSpec:
+    """Read and validate a spec file; raise SpecError with a one-line message on any problem."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__}: {err})") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
+    return spec_from_dict(raw, default_name=path.stem)
+
+
+def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
+    """Validate a spec given as the dict a TOML file parses to."""
+    flat = _flatten(raw)
+    units = flat.get("units", "mm")
+    if not isinstance(units, str) or units.lower() not in LENGTH_UNITS_MM:
+        raise SpecError("units", units, f"must be one of {', '.join(LENGTH_UNITS_MM)}")
+    reader = _Reader(flat, units.lower())
+    value = reader.value
+
+    style = value("cut.style")
+    patches = _cell_sizes(reader)
+    pair_width, pair_spacing = value("pair.width"), value("pair.spacing")
+    h = value("stackup.h")
+    spec = FilterSpec(
+        name=_file_name(value("name") or default_name),
+        pair_width=pair_width,
+        pair_spacing=pair_spacing,
+        path=value("pair.path"),
+        pair_layer=value("pair.layer"),
+        nets=value("pair.nets"),
+        plane_layers=value("plane.layers"),
+        plane_net=value("plane.net"),
+        plane_outline=value("plane.outline"),
+        style=style,
+        patches=patches,
+        slot=value("cut.slot"),
+        web=value("cut.web"),
+        start=value("cut.start"),
+        passes=value("cut.passes"),
+        lane_gap=value("cut.lane_gap") if flat.get("cut.lane_gap") is not None else max(3 * pair_width, 2 * pair_spacing),
+        turn_clearance=0.0,
+        bridge_width=value("cut.bridge.width"),
+        bridge_length=value("cut.bridge.length"),
+        bridges_per_side=value("cut.bridge.per_side"),
+        er=value("stackup.er"),
+        h=h,
+        er_tolerance=value("stackup.er_tolerance"),
+        h_tolerance=value("stackup.h_tolerance"),
+        min_slot=value("rules.min_slot"),
+        min_copper=value("rules.min_copper"),
+        corner_margin=value("rules.corner_margin"),
+        min_angle=value("rules.min_angle"),
+        crossings=value("rules.crossings"),
+        min_crossings=value("rules.min_crossings"),
+        symmetry=value("rules.symmetry"),
+        skew_limit_ps=value("rules.skew_limit_ps"),
+        bridge_keep=value("rules.bridge_keep") if flat.get("rules.bridge_keep") is not None else 3 * h,
+        edge_clearance=value("rules.edge_clearance"),
+        target_tolerance=value("rules.target_tolerance"),
+        target_hz=value("target"),
+        gds_layers=value("gds"),
+        track_obstacles=value("obstacles.tracks"),
+        via_obstacles=value("obstacles.vias"),
+        echo=raw,
+    )
+    turn = value("cut.turn_clearance") if flat.get("cut.turn_clearance") is not None else spec.lane_pitch
+    spec = _replace(spec, turn_clearance=turn)
+    _check_relations(spec, reader)
+    return spec
+
+
+def _replace(spec: FilterSpec, **changes) -> FilterSpec:
+    from dataclasses import replace
+
+    return replace(spec, **changes)
+
+
+def _file_name(name: object) -> str:
+    if not isinstance(name, str) or not name or any(c in name for c in '/\\:*?"<>|') or name.startswith("."):
+        raise SpecError("name", name, "must be a plain file name (no path separators, no leading dot)")
+    return name
+
+
+def _flatten(raw: dict, prefix: str = "") -> dict:
+    """Dotted keys for the known groups; unknown keys are rejected with a did-you-mean."""
+    flat: dict[str, Any] = {}
+    for key, val in raw.items():
+        dotted = f"{prefix}{key}"
+        if dotted in _GROUPS and isinstance(val, dict) and dotted not in PARAMETER_BY_KEY:
+            flat.update(_flatten(val, dotted + "."))
+        elif dotted == "cut.bridge" and not isinstance(val, dict):
+            raise SpecError(dotted, val, "must be a table {width=, length=, per_side=}")
+        elif dotted in PARAMETER_BY_KEY:
+            flat[dotted] = val
+        else:
+            known = [p.key for p in PARAMETERS] + sorted(_GROUPS)
+            close = difflib.get_close_matches(dotted, known, n=1)
+            hint = f"did you mean {close[0]!r}?" if close else "see `ebglayout params` for the keys"
+            raise SpecError(dotted, val if not isinstance(val, dict) else "{...}", f"unknown key; {hint}")
+    return flat
+
+
+class _Reader:
+    """Reads one dotted key with its kind's parser; defaults come from the table."""
+
+    def __init__(self, flat: dict, units: str):
+        self.flat, self.units = flat, units
+
+    def value(self, key: str):
+        param = PARAMETER_BY_KEY[key]
+        if key not in self.flat or self.flat[key] is None:
+            if param.default is REQUIRED:
+                raise SpecError(key, "(missing)", f"is required: {param.help}")
+            return param.default
+        return _PARSERS[param.kind](self, key, self.flat[key])
+
+    def length(self, key: str, raw: object, low: float = 0.0, allow_zero: bool = False) -> float:
+        mm = parse_length(raw, key, self.units)
+        if mm < low or (mm == low and not allow_zero) or mm > MAX_LENGTH_MM:
+            bound = ">= 0" if allow_zero else "> 0"
+            raise SpecError(key, raw, f"must be {bound} and at most {MAX_LENGTH_MM:g} mm (got {format_mm(mm)})")
+        return mm
+
+    def point(self, key: str, raw: object) -> tuple[float, float]:
+        if not isinstance(raw, list) or len(raw) != 2:
+            raise SpecError(key, raw, "must be a point [x, y]")
+        x, y = (parse_length(c, key, self.units) for c in raw)
+        if max(abs(x), abs(y)) > 10 * MAX_LENGTH_MM:
+            raise SpecError(key, raw, "coordinates must lie within 10 m of the origin")
+        return (x, y)
+
+
+def _parse_text(reader: _Reader, key: str, raw: object) -> str:
+    if not isinstance(raw, str) or not raw.strip():
+        raise SpecError(key, raw, "must be a non-empty string")
+    return raw
+
+
+def _parse_length(reader: _Reader, key: str, raw: object) -> float:
+    zero_ok = key in ("cut.web", "cut.start", "rules.corner_margin", "rules.symmetry", "rules.edge_clearance",
+                      "rules.bridge_keep", "cut.turn_clearance")
+    return reader.length(key, raw, allow_zero=zero_ok)
+
+
+def _parse_number(reader: _Reader, key: str, raw: object) -> float:
+    limits = {
+        "stackup.er": (1.0, 30.0, "between 1 and 30"),
+        "stackup.er_tolerance": (0.0, 0.5, "between 0 and 0.5"),
+        "stackup.h_tolerance": (0.0, 0.5, "between 0 and 0.5"),
+        "rules.min_angle": (0.0, 90.0, "between 0 and 90 degrees"),
+        "rules.skew_limit_ps": (0.0, 1e4, "between 0 and 10000 ps"),
+        "rules.target_tolerance": (0.0, 1.0, "between 0 and 1"),
+    }
+    low, high, text = limits[key]
+    if isinstance(raw, bool) or not isinstance(raw, (int, float)) or not math.isfinite(raw) or not low <= raw <= high:
+        raise SpecError(key, raw, f"must be a number {text}")
+    return float(raw)
+
+
+def _parse_int(reader: _Reader, key: str, raw: object) -> int:
+    limits = {"cut.count": (1, 1000), "cut.passes": (1, 99), "cut.bridge.per_side": (1, 16),
+              "rules.crossings": (1, 10000), "rules.min_crossings": (1, 10000)}
+    low, high = limits[key]
+    if isinstance(raw, bool) or not isinstance(raw, int) or not low <= raw <= high:
+        raise SpecError(key, raw, f"must be a whole number from {low} to {high}")
+    return raw
+
+
+def _parse_choice(reader: _Reader, key: str, raw: object) -> str:
+    if raw not in STYLES:
+        raise SpecError(key, raw, f"must be one of {', '.join(STYLES)}")
+    return raw
+
+
+def _parse_frequency(reader: _Reader, key: str, raw: object) -> float:
+    return parse_frequency(raw, key)
+
+
+def _parse_size(reader: _Reader, key: str, raw: object) -> tuple[float, float]:
+    if not isinstance(raw, list) or len(raw) != 2:
+        raise SpecError(key, raw, "must be [along, across], two lengths")
+    return (reader.length(key, raw[0]), reader.length(key, raw[1]))
+
+
+def _parse_sizes(reader: _Reader, key: str, raw: object) -> tuple[tuple[float, float], ...]:
+    if not isinstance(raw, list) or not raw or len(raw) > 1000:
+        raise SpecError(key, raw, "must be a list of 1 to 1000 [along, across] sizes")
+    return tuple(_parse_size(reader, f"{key}[{i}]", item) for i, item in enumerate(raw))
+
+
+def _parse_nets(reader: _Reader, key: str, raw: object) -> tuple[str, str]:
+    if not isinstance(raw, list) or len(raw) != 2 or not all(isinstance(n, str) and n for n in raw) or raw[0] == raw[1]:
+        raise SpecError(key, raw, "must be two different net names [positive, negative]")
+    return (raw[0], raw[1])
+
+
+def _parse_layers(reader: _Reader, key: str, raw: object) -> tuple[str, ...]:
+    if (not isinstance(raw, list) or not 1 <= len(raw) <= 2 or not all(isinstance(n, str) and n for n in raw)
+            or len(set(raw)) != len(raw)):
+        raise SpecError(key, raw, "must be one or two different layer names, e.g. [\"In1.Cu\"] or [\"In1.Cu\", \"In2.Cu\"]")
+    return tuple(raw)
+
+
+def _parse_points(reader: _Reader, key: str, raw: object) -> tuple[tuple[float, float], ...]:
+    if not isinstance(raw, list) or len(raw) < 3:
+        raise SpecError(key, raw, "must be a polygon of at least 3 points [[x,y],...]")
+    return tuple(reader.point(f"{key}[{i}]", p) for i, p in enumerate(raw))
+
+
+def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...]:
+    """Centre-line items: points continue the polyline; an arc item starts at the current point."""
+    if not isinstance(raw, list) or len(raw) < 2:
+        raise SpecError(key, raw, "must list at least two points [[x0,y0],[x1,y1],...]")
+    pieces: list[Line | Arc] = []
+    current: tuple[float, float] | None = None
+    for i, item in enumerate(raw):
+        where = f"{key}[{i}]"
+        if isinstance(item, dict):
+            if set(item) != {"arc"} or not isinstance(item["arc"], list) or len(item["arc"]) != 3:
+                raise SpecError(where, item, "an arc item must be {arc=[[x1,y1],[xm,ym],[x2,y2]]}")
+            a, m, b = (reader.point(where, p) for p in item["arc"])
+            if current is not None and math.dist(current, a) > 1e-6:
+                raise SpecError(where, item, f"arc must start at the previous point ({current[0]:g}, {current[1]:g})")
+            cross = (m[0] - a[0]) * (b[1] - a[1]) - (m[1] - a[1]) * (b[0] - a[0])
+            if abs(cross) < 1e-9 or math.dist(a, b) < 1e-6:
+                raise SpecError(where, item, "arc points must not be collinear or coincide")
+            pieces.append(Arc(a, m, b))
+            current = b
+        else:
+            p = reader.point(where, item)
+            if current is not None:
+                if math.dist(current, p) < 1e-6:
+                    raise SpecError(where, item, "repeats the previous point (zero-length segment)")
+                pieces.append(Line(current, p))
+            current = p
+    if not pieces:
+        raise SpecError(key, raw, "must contain at least one segment")
+    return tuple(pieces)
+
+
+def _parse_layermap(reader: _Reader, key: str, raw: object) -> tuple[tuple[str, int, int], ...]:
+    if not isinstance(raw, dict):
+        raise SpecError(key, raw, "must be a table {\"In1.Cu/slot\" = [layer, datatype], ...}")
+    out = []
+    for name, pair in sorted(raw.items()):
+        if (not isinstance(pair, list) or len(pair) != 2
+                or not all(isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 65535 for v in pair)):
+            raise SpecError(f"{key}.{name}", pair, "must be [layer, datatype], whole numbers 0..65535")
+        out.append((name, pair[0], pair[1]))
+    return tuple(out)
+
+
+def _parse_tracks(reader: _Reader, key: str, raw: object) -> tuple[TrackObstacle, ...]:
+    if not isinstance(raw, list):
+        raise SpecError(key, raw, "must be a list of {path=[[x,y],...], width=, layer=}")
+    out = []
+    for i, item in enumerate(raw):
+        where = f"{key}[{i}]"
+        if not isinstance(item, dict) or not {"path", "width", "layer"} <= set(item) or set(item) - {"path", "width", "layer", "net"}:
+            raise SpecError(where, item, "must be {path=[[x,y],...], width=, layer=} with optional net=")
+        if not isinstance(item["path"], list) or len(item["path"]) < 2:
+            raise SpecError(f"{where}.path", item["path"], "must list at least two points")
+        points = tuple(reader.point(f"{where}.path", p) for p in item["path"])
+        out.append(TrackObstacle(points, reader.length(f"{where}.width", item["width"]),
+                                 _parse_text(reader, f"{where}.layer", item["layer"]), str(item.get("net", ""))))
+    return tuple(out)
+
+
+def _parse_vias(reader: _Reader, key: str, raw: object) -> tuple[ViaObstacle, ...]:
+    if not isinstance(raw, list):
+        raise SpecError(key, raw, "must be a list of {at=[x,y], diameter=}")
+    out = []
+    for i, item in enumerate(raw):
+        where = f"{key}[{i}]"
+        if not isinstance(item, dict) or not {"at", "diameter"} <= set(item) or set(item) - {"at", "diameter", "net"}:
+            raise SpecError(where, item, "must be {at=[x,y], diameter=} with optional net=")
+        out.append(ViaObstacle(reader.point(f"{where}.at", item["at"]),
+                               reader.length(f"{where}.diameter", item["diameter"]), str(item.get("net", ""))))
+    return tuple(out)
+
+
+_PARSERS: dict[str, Callable[[_Reader, str, object], Any]] = {
+    "text": _parse_text, "length": _parse_length, "number": _parse_number, "int": _parse_int,
+    "choice": _parse_choice, "frequency": _parse_frequency, "size": _parse_size, "sizes": _parse_sizes,
+    "nets": _parse_nets, "layers": _parse_layers, "points": _parse_points, "path": _parse_path,
+    "layermap": _parse_layermap, "tracks": _parse_tracks, "vias": _parse_vias,
+}
+
+
+def _cell_sizes(reader: _Reader) -> tuple[tuple[float, float], ...]:
+    flat = reader.flat
+    if flat.get("cut.patches") is not None:
+        if flat.get("cut.patch") is not None:
+            raise SpecError("cut.patches", "[...]", "give either cut.patch with cut.count, or cut.patches, not both")
+        sizes = reader.value("cut.patches")
+        if flat.get("cut.count") is not None and flat["cut.count"] != len(sizes):
+            raise SpecError("cut.count", flat["cut.count"], f"must equal the number of cut.patches ({len(sizes)}) or be left out")
+        return sizes
+    if flat.get("cut.patch") is None:
+        raise SpecError("cut.patch", "(missing)", "is required (or cut.patches for staggered cells)")
+    return (reader.value("cut.patch"),) * reader.value("cut.count")
+
+
+def _check_relations(spec: FilterSpec, reader: _Reader) -> None:
+    """Checks that involve more than one key."""
+    smallest = min(min(a, b) for a, b in spec.patches)
+    if spec.slot >= smallest:
+        raise SpecError("cut.slot", reader.flat["cut.slot"],
+                        f"must be > 0 and < the patch size ({format_mm(smallest)})")
+    if spec.style == "bridged":
+        if spec.bridge_width is None or spec.bridge_length is None:
+            raise SpecError("cut.bridge", reader.flat.get("cut.bridge", "(missing)"),
+                            "bridged style needs cut.bridge = {width=, length=}")
+        if spec.bridge_length < spec.slot - 1e-9:
+            raise SpecError("cut.bridge.length", reader.flat["cut.bridge.length"],
+                            f"must be >= the slot width ({format_mm(spec.slot)}): a bridge spans the slot")
+        for i, (a, b) in enumerate(spec.patches):
+            need = spec.bridges_per_side * (spec.bridge_width + 2 * spec.slot) + spec.slot
+            if need > a:
+                raise SpecError("cut.bridge.per_side", spec.bridges_per_side,
+                                f"bridges and their pockets need {format_mm(need)} along cell {i} but it is {format_mm(a)} long")
+            if spec.bridge_length - spec.slot >= b / 2 - spec.trace_offset - spec.pair_width / 2:
+                raise SpecError("cut.bridge.length", reader.flat["cut.bridge.length"],
+                                f"the pocket ({format_mm(spec.bridge_length - spec.slot)} deep) would reach the traces of cell {i}")
+    elif reader.flat.get("cut.bridge") is not None or reader.flat.get("cut.bridge.width") is not None:
+        raise SpecError("cut.bridge", "{...}", f"only the bridged style takes bridges (cut.style is {spec.style!r})")
+    if spec.style != "folded" and spec.passes != 1:
+        raise SpecError("cut.passes", spec.passes, f"only the folded style takes passes (cut.style is {spec.style!r})")
+    if spec.style == "folded" and spec.passes < 2:
+        raise SpecError("cut.passes", spec.passes, "folded style needs at least 2 passes")
+    if spec.pair_layer in spec.plane_layers:
+        raise SpecError("plane.layers", list(spec.plane_layers), f"must not include the pair's own layer {spec.pair_layer!r}")
+    across_need = 2 * spec.trace_offset + spec.pair_width
+    for i, (a, b) in enumerate(spec.patches):
+        if spec.style != "folded" and across_need >= b:
+            raise SpecError("cut.patch" if reader.flat.get("cut.patch") is not None else f"cut.patches[{i}]",
+                            [a, b], f"across size must exceed the pair's width ({format_mm(across_need)})")
+    if spec.gds_layers:
+        allowed_roles = {"slot", "patch", "bridge", "outline", "trace"}
+        for name, _, _ in spec.gds_layers:
+            layer, _, role = name.partition("/")
+            if role not in allowed_roles or layer not in (*spec.plane_layers, spec.pair_layer):
+                raise SpecError(f"gds.{name}", name, "keys are \"<plane layer>/<slot|patch|bridge|outline>\" "
+                                "or \"<pair layer>/trace\"")

@@ -1,0 +1,76 @@
+"""Length and frequency parsing at the edges; mm and Hz everywhere inside."""
+from __future__ import annotations
+
+import math
+import re
+
+from .errors import SpecError
+
+LENGTH_UNITS_MM = {"mm": 1.0, "um": 1e-3, "mil": 0.0254, "thou": 0.0254, "in": 25.4, "cm": 10.0, "nm": 1e-6}
+FREQUENCY_UNITS_HZ = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
+RATE_UNITS_BPS = {"bps": 1.0, "kbps": 1e3, "mbps": 1e6, "gbps": 1e9, "gt/s": 1e9, "mt/s": 1e6}
+
+GRID_MM = 1e-6
+"""Every coordinate the engine emits lies on this 1 nm grid."""
+
+_NUMBER_WITH_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([A-Za-z/]*)\s*$")
+
+
+def snap(value: float) -> float:
+    """Round a length in mm to the 1 nm grid (idempotent)."""
+    return round(value / GRID_MM) * GRID_MM if value else 0.0
+
+
+def parse_length(value: object, key: str, file_units: str = "mm") -> float:
+    """Return a length in mm from a bare number (in ``file_units``) or a string like "6mil"."""
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise SpecError(key, value, "must be a length: a number or a string such as \"0.15mm\" or \"6mil\"")
+    if isinstance(value, str):
+        match = _NUMBER_WITH_UNIT.match(value)
+        if not match:
+            raise SpecError(key, value, f"must be a number with a length unit ({', '.join(LENGTH_UNITS_MM)})")
+        number, unit = float(match.group(1)), (match.group(2) or file_units).lower()
+        if unit not in LENGTH_UNITS_MM:
+            raise SpecError(key, value, f"unknown length unit {unit!r}; allowed: {', '.join(LENGTH_UNITS_MM)}")
+        mm = number * LENGTH_UNITS_MM[unit]
+    else:
+        mm = float(value) * LENGTH_UNITS_MM[file_units]
+    if not math.isfinite(mm):
+        raise SpecError(key, value, "must be a finite length")
+    return mm
+
+
+def parse_frequency(value: object, key: str) -> float:
+    """Return a frequency in Hz from "8GHz", "8 GHz", a bare number in Hz, or a data rate.
+
+    A data rate ("16Gbps") gives the frequency of the NRZ second harmonic of the
+    fundamental, which sits at the bit rate in Hz (common practice: an NRZ
+    stream of rate R has its fundamental at R/2).
+    """
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise SpecError(key, value, "must be a frequency such as \"8GHz\" or a data rate such as \"16Gbps\"")
+    if isinstance(value, str):
+        match = _NUMBER_WITH_UNIT.match(value)
+        unit = match.group(2).lower() if match else ""
+        if not match or not (unit in FREQUENCY_UNITS_HZ or unit in RATE_UNITS_BPS):
+            raise SpecError(key, value, "must be a frequency (Hz, kHz, MHz, GHz) or a data rate (Mbps, Gbps, GT/s)")
+        number = float(match.group(1))
+        hz = number * (FREQUENCY_UNITS_HZ.get(unit) or RATE_UNITS_BPS[unit])
+    else:
+        hz = float(value)
+    if not math.isfinite(hz) or hz <= 0 or hz > 1e12:
+        raise SpecError(key, value, "must be a frequency above 0 and at most 1 THz")
+    return hz
+
+
+def format_mm(value: float) -> str:
+    """Short text for a length in mm: 0.15 -> "0.15 mm"."""
+    return f"{value:.6g} mm"
+
+
+def format_hz(value: float) -> str:
+    """Short text for a frequency: 7.95e9 -> "7.95 GHz"."""
+    for unit, scale in (("GHz", 1e9), ("MHz", 1e6), ("kHz", 1e3)):
+        if abs(value) >= scale:
+            return f"{value / scale:.4g} {unit}"
+    return f"{value:.4g} Hz"
