@@ -21,7 +21,7 @@ from .fold import Turn, fold
 from .path import offset_pieces, polyline_of, to_board, validate_centre_line
 from .placement import place_row
 from .spec import Arc, FilterSpec, Line
-from .units import GRID_MM
+from .units import GRID_MM, on_grid
 
 ROLES = ("slot", "patch", "bridge", "outline")
 """Per plane layer: copper removed, patch copper, bridge copper, and the cut's outer edge."""
@@ -92,7 +92,7 @@ class Layout:
 
 def as_multipolygon(geom) -> MultiPolygon:
     """Snap to the grid, keep only areas, and return a normalised MultiPolygon (stable vertex order)."""
-    geom = shapely.set_precision(geom, GRID_MM)
+    geom = on_grid(geom)
     polys: list[Polygon] = []
     for part in getattr(geom, "geoms", [geom]):
         if isinstance(part, Polygon) and not part.is_empty:

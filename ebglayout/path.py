@@ -16,7 +16,7 @@ from shapely.geometry import LineString
 
 from .errors import SpecError
 from .spec import Arc, Line
-from .units import GRID_MM
+from .units import GRID_MM, on_grid
 
 ARC_TOLERANCE_MM = 0.25e-3
 """Largest sagitta between an arc and its chords; well under any fab tolerance."""
@@ -161,7 +161,7 @@ def polyline_of(pieces: tuple[Line | Arc, ...]) -> LineString:
     for piece in pieces:
         piece_pts = piece_points(piece)
         pts.extend(piece_pts if not pts else piece_pts[1:])
-    return shapely.set_precision(LineString(pts), GRID_MM)
+    return on_grid(LineString(pts))
 
 
 def validate_centre_line(pieces: tuple[Line | Arc, ...], offset: float, width: float) -> CentreLine:
@@ -195,7 +195,7 @@ def offset_pieces(pieces: tuple[Line | Arc, ...], distance: float) -> LineString
                 pts[-1] = _meet(pts[-1], end_direction(pieces[k - 1]), piece_pts[0], start_direction(piece))
             piece_pts = piece_pts[1:]
         pts.extend(piece_pts)
-    return shapely.set_precision(LineString(pts), GRID_MM)
+    return on_grid(LineString(pts))
 
 
 def _offset_piece(piece: Line | Arc, distance: float) -> Line | Arc:

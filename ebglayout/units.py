@@ -21,6 +21,17 @@ def snap(value: float) -> float:
     return round(value / GRID_MM) * GRID_MM if value else 0.0
 
 
+def on_grid(geometry):
+    """Snap a shapely geometry to the 1 nm grid and return it without an attached precision model.
+
+    Later operations (buffers, probes) must run in full floating precision; a
+    grid carried on the geometry would silently round their results.
+    """
+    import shapely
+
+    return shapely.from_wkb(shapely.to_wkb(shapely.set_precision(geometry, GRID_MM)))
+
+
 def parse_length(value: object, key: str, file_units: str = "mm") -> float:
     """Return a length in mm from a bare number (in ``file_units``) or a string like "6mil"."""
     if isinstance(value, bool) or not isinstance(value, (int, float, str)):
