@@ -26,3 +26,98 @@ class Finding:
                 "at": [round(self.at[0], 6), round(self.at[1], 6)],
                 "value": None if self.value is None else round(self.value, 6),
                 "limit": None if self.limit is None else round(self.limit, 6), "layer": self.layer}
+
+
+@dataclass(frozen=True)
+class CheckReport:
+    """All rule results for one filter.  Truthy when clean (no errors)."""
+
+    name: str
+    results: tuple
+    crossings: dict
+    crossings_by_layer: dict
+    min_slot_width: float | None
+    min_copper_width: float | None
+
+    @property
+    def findings(self) -> list[Finding]:
+        return [f for r in self.results for f in r.findings]
+
+    @property
+    def errors(self) -> list[Finding]:
+        return [f for f in self.findings if f.severity == "error"]
+
+    @property
+    def warnings(self) -> list[Finding]:
+        return [f for f in self.findings if f.severity == "warning"]
+
+    def __bool__(self) -> bool:
+        return not self.errors
+
+    def __len__(self) -> int:
+        return len(self.findings)
+
+    def to_json(self) -> dict:
+        return {
+            "filter": self.name,
+            "crossings": self.crossings,
+            "crossings_by_layer": self.crossings_by_layer,
+            "min_slot_width": _round(self.min_slot_width),
+            "min_copper_width": _round(self.min_copper_width),
+            "summary": {"errors": len(self.errors), "warnings": len(self.warnings)},
+            "rules": [{"rule": r.rule, "checked": r.checked,
+                       "errors": sum(f.severity == "error" for f in r.findings),
+                       "warnings": sum(f.severity == "warning" for f in r.findings),
+                       "worst": _round(r.worst), "limit": _round(r.limit), "unit": r.unit, "note": r.note}
+                      for r in self.results],
+            "findings": [f.to_json() for f in self.findings],
+        }
+
+    def format_table(self) -> str:
+        """Terminal table grouped by rule: checked, errors, warnings, worst value against the limit."""
+        lines = [f"{self.name}: crossings P={self.crossings['P']} N={self.crossings['N']}, "
+                 f"min slot {_fmt(self.min_slot_width)} mm, min copper {_fmt(self.min_copper_width)} mm",
+                 f"  {'rule':<18} {'checked':>7} {'errors':>6} {'warn':>5}  {'worst':>10} {'limit':>10}  status"]
+        for r in self.results:
+            errors = sum(f.severity == "error" for f in r.findings)
+            warnings = len(r.findings) - errors
+            status = "FAIL" if errors else ("warn" if warnings else ("pass" if r.checked else "n/a"))
+            worst = f"{_fmt(r.worst)} {r.unit}".strip() if r.worst is not None else "-"
+            limit = f"{_fmt(r.limit)} {r.unit}".strip() if r.limit is not None else "-"
+            lines.append(f"  {r.rule:<18} {r.checked:>7} {errors:>6} {warnings:>5}  {worst:>10} {limit:>10}  {status}"
+                         + (f"  ({r.note})" if r.note else ""))
+        for f in self.findings:
+            lines.append(f"  {f.severity.upper():<7} {f.rule}: {f.message} at ({f.at[0]:.4f}, {f.at[1]:.4f})")
+        return "\n".join(lines)
+
+
+def _round(value):
+    return None if value is None else round(float(value), 6)
+
+
+def _fmt(value) -> str:
+    return "-" if value is None else f"{value:.4g}"
+
+
+def run_checks(layout, context=None) -> CheckReport:
+    """Run every rule on a layout; ``context`` adds board copper, outline and stack-up (default: from the spec)."""
+    from .rules import RULE_FUNCTIONS, context_from_spec
+    from .widths import min_width
+
+    ctx = context if context is not None else context_from_spec(layout.spec)
+    results = tuple(rule(layout, ctx) for rule in RULE_FUNCTIONS)
+    by_layer = {cut.layer: {pol: len(layout.full_crossings(cut.layer, pol)) for pol in ("P", "N")}
+                for cut in layout.cuts}
+    first = layout.cuts[0].layer
+    slot = [w for cut in layout.cuts if (w := min_width(cut.slot))]
+    from .rules import cut_copper
+
+    copper = [w for cut in layout.cuts if (w := min_width(cut_copper(cut)))]
+    return CheckReport(
+        name=layout.spec.name,
+        results=results,
+        crossings=dict(by_layer[first]),
+        crossings_by_layer=by_layer,
+        min_slot_width=min(w.width for w in slot) if slot else None,
+        min_copper_width=min(w.width for w in copper) if copper else None,
+    )

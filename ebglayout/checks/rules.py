@@ -1,0 +1,488 @@
+"""The rule set.  Each rule reads the Layout (and the board context) and returns a RuleResult.
+
+Every number is measured on the polygons the engine built or the board holds,
+never taken from the spec's intent; the spec only supplies the limits.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import shapely
+from shapely.affinity import affine_transform
+from shapely.geometry import LineString, Point, Polygon
+from shapely.ops import unary_union
+
+from ..crossing import Crossing
+from ..layout import Layout, effective_permittivity, skew_ps
+from ..spec import FilterSpec, TrackObstacle, ViaObstacle
+from . import Finding
+from .widths import min_width, narrower_than
+
+C0 = 299_792_458.0
+
+
+@dataclass(frozen=True)
+class Rule:
+    """A rule's stable id, what it checks, its default limit and where that limit comes from."""
+
+    id: str
+    title: str
+    limit: str
+    source: str
+
+
+RULES: tuple[Rule, ...] = (
+    Rule("crossing-count", "each trace fully crosses slots; P and N counts equal and pair up slot by slot; "
+         "count = rules.crossings, else >= rules.min_crossings", "min_crossings = 2",
+         "common practice: one cell gives two crossings per trace; P/N symmetry keeps the cut from converting modes"),
+    Rule("crossing-along", "no trace runs along a slot or ends inside one", "0 mm inside",
+         "common practice: a trace over a slot edge has no defined return path"),
+    Rule("crossing-angle", "angle between trace and slot edge at every crossing", "min_angle = 80 deg",
+         "common practice: cross slots at right angles so both traces see the same gap"),
+    Rule("corner-margin", "distance from each crossing trace to the nearest patch corner", "corner_margin = 0.4 mm",
+         "common practice: fields crowd at patch corners; keep crossings several dielectric heights away"),
+    Rule("crossing-symmetry", "P and N cross each slot at the same arc length; reported as skew",
+         "symmetry = 0.005 mm", "common practice: any P/N offset at a slot converts differential to common mode"),
+    Rule("slot-width", "every slot at least the fab's minimum etch gap", "min_slot = 0.1 mm",
+         "typical fab capability for inner-layer etch of 1/2 oz copper (from memory; ask your fab)"),
+    Rule("copper-width", "every copper neck (patch, bridge, web) at least the fab's minimum", "min_copper = 0.1 mm",
+         "typical fab capability for inner-layer features of 1/2 oz copper (from memory; ask your fab)"),
+    Rule("bridge-keepout", "no bridge closer to a trace than the keep distance", "bridge_keep = 3 x h",
+         "common practice: the return current spreads about three dielectric heights either side of a trace"),
+    Rule("bridge-symmetry", "bridges mirror-symmetric about the pair in every cell", "exact",
+         "common practice: asymmetric bridges load P and N differently"),
+    Rule("cell-overlap", "patches do not overlap; slots merge only when web = 0 was asked", "no overlap",
+         "geometry: overlapping cells are not the drawn filter"),
+    Rule("plane-edge", "every cell inside the plane outline and away from its edge", "edge_clearance = 0.5 mm",
+         "common practice: a cut near the plane edge couples to the board-edge resonance"),
+    Rule("stripline-cut", "a pair between two planes has the cut in both, aligned (patch overlap >= 95 %)", "95 %",
+         "common practice: with one plane left solid the return current takes it and the notch mostly vanishes"),
+    Rule("foreign-track", "no other net's track referenced to the cut plane crosses a slot or runs over a patch", "none",
+         "common practice: a track over a slot or a floating patch loses its return path"),
+    Rule("foreign-via", "no via or pad through a floating patch (error) or near a slot (warning)",
+         "one via diameter from slots", "common practice: a plane-net via shorts a floating patch; any other needs an antipad"),
+    Rule("fold-skew", "P/N length difference through the filter, as delay", "skew_limit_ps = 1 ps",
+         "common practice: keep intra-pair skew a small fraction of the unit interval"),
+    Rule("notch-target", "estimated notch band covers the target over the er/h tolerance sweep", "target_tolerance = 15 %",
+         "cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., sec. 9.7, from memory)"),
+)
+RULE_BY_ID = {r.id: r for r in RULES}
+
+
+@dataclass
+class RuleResult:
+    """Outcome of one rule: how many places it looked at, what it found, and the worst value against its limit."""
+
+    rule: str
+    checked: int = 0
+    findings: list[Finding] = field(default_factory=list)
+    worst: float | None = None
+    limit: float | None = None
+    unit: str = ""
+    note: str = ""
+
+    def add(self, severity: str, message: str, at, value=None, limit=None, layer: str = "") -> None:
+        self.findings.append(Finding(self.rule, severity, message, (float(at[0]), float(at[1])), value, limit, layer))
+
+    def see(self, value: float, lower_is_worse: bool = True) -> None:
+        if self.worst is None or (value < self.worst if lower_is_worse else value > self.worst):
+            self.worst = value
+
+
+@dataclass(frozen=True)
+class BoardContext:
+    """What the checks know beyond the layout: other copper, the plane outline, and the stack-up around the pair.
+
+    ``sandwiched`` is True when the pair's layer has a plane on each side (from the
+    board stack-up), False when it has one, None when unknown (spec only).
+    """
+
+    tracks: tuple[TrackObstacle, ...] = ()
+    vias: tuple[ViaObstacle, ...] = ()
+    plane_outline: Polygon | None = None
+    sandwiched: bool | None = None
+    references: dict[str, tuple[str, ...]] | None = None
+    """Signal layer -> plane layers it is referenced to; None = infer from layer names."""
+
+
+def context_from_spec(spec: FilterSpec) -> BoardContext:
+    outline = Polygon(spec.plane_outline) if spec.plane_outline else None
+    return BoardContext(tracks=spec.track_obstacles, vias=spec.via_obstacles, plane_outline=outline)
+
+
+def _paired(layout: Layout, layer: str) -> tuple[list[Crossing], list[Crossing]]:
+    p = sorted(layout.full_crossings(layer, "P"), key=lambda c: c.s_centre)
+    n = sorted(layout.full_crossings(layer, "N"), key=lambda c: c.s_centre)
+    return p, n
+
+
+def expected_crossings(spec: FilterSpec) -> int:
+    """Full crossings per trace the style implies: 2 per cell, or count + 1 with shared slots, times the passes."""
+    per_pass = spec.count + 1 if spec.web == 0 else 2 * spec.count
+    return per_pass * spec.passes
+
+
+def crossing_count(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("crossing-count", unit="")
+    required = spec.crossings if spec.crossings is not None else spec.min_crossings
+    r.limit = float(required)
+    for cut in layout.cuts:
+        p, n = _paired(layout, cut.layer)
+        r.checked += 1
+        r.see(float(min(len(p), len(n))))
+        at = (p or n or [None])[0]
+        where = at.point if at else layout.cells[0].centre
+        if len(p) != len(n):
+            r.add("error", f"{cut.layer}: P crosses {len(p)} slots, N crosses {len(n)}", where, len(p) - len(n), 0, cut.layer)
+        for cp, cn in zip(p, n):
+            if set(cp.bodies) != set(cn.bodies):
+                r.add("error", f"{cut.layer}: P crosses {'/'.join(cp.bodies)} where N crosses {'/'.join(cn.bodies)}",
+                      cp.point, layer=cut.layer)
+        count = min(len(p), len(n))
+        if spec.crossings is not None and count != spec.crossings:
+            r.add("error", f"{cut.layer}: {count} full crossings per trace, rules.crossings asks for {spec.crossings}",
+                  where, count, spec.crossings, cut.layer)
+        elif spec.crossings is None and count < spec.min_crossings:
+            r.add("error", f"{cut.layer}: {count} full crossings per trace, fewer than rules.min_crossings = "
+                  f"{spec.min_crossings}", where, count, spec.min_crossings, cut.layer)
+        implied = expected_crossings(spec)
+        if count != implied and spec.crossings is None and count >= spec.min_crossings:
+            r.add("warning", f"{cut.layer}: {count} full crossings per trace; the {spec.style} style with these "
+                  f"cells implies {implied}", where, count, implied, cut.layer)
+    return r
+
+
+def crossing_along(layout: Layout, ctx: BoardContext) -> RuleResult:
+    r = RuleResult("crossing-along", unit="mm", limit=0.0)
+    for c in layout.crossings:
+        r.checked += 1
+        if c.kind == "along":
+            r.see(c.length, lower_is_worse=False)
+            r.add("error", f"{c.layer}: trace {c.polarity} runs {c.length:.4g} mm inside a slot and leaves onto the "
+                  f"copper it came from ({c.bodies[0]})", c.point, c.length, 0.0, c.layer)
+        elif c.kind == "ends":
+            r.see(c.length, lower_is_worse=False)
+            r.add("error", f"{c.layer}: trace {c.polarity} ends inside a slot ({c.length:.4g} mm inside)",
+                  c.point, c.length, 0.0, c.layer)
+    return r
+
+
+def crossing_angle(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("crossing-angle", unit="deg", limit=spec.min_angle)
+    for c in layout.crossings:
+        if c.kind != "full":
+            continue
+        r.checked += 1
+        r.see(c.angle_deg)
+        if c.angle_deg < spec.min_angle - 1e-6:
+            r.add("error", f"{c.layer}: trace {c.polarity} crosses a slot edge at {c.angle_deg:.1f} deg "
+                  f"(min {spec.min_angle:g})", c.point, c.angle_deg, spec.min_angle, c.layer)
+    return r
+
+
+def corner_margin(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("corner-margin", unit="mm", limit=spec.corner_margin)
+    for c in layout.crossings:
+        if c.kind != "full" or not math.isfinite(c.corner_distance):
+            continue
+        r.checked += 1
+        r.see(c.corner_distance)
+        if c.corner_distance < spec.corner_margin - 1e-6:
+            r.add("error", f"{c.layer}: trace {c.polarity} crosses {c.corner_distance:.4g} mm from a patch corner "
+                  f"(min {spec.corner_margin:g})", c.point, c.corner_distance, spec.corner_margin, c.layer)
+    return r
+
+
+def crossing_symmetry(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("crossing-symmetry", unit="mm", limit=spec.symmetry)
+    er_eff = effective_permittivity(spec)
+    for cut in layout.cuts:
+        p, n = _paired(layout, cut.layer)
+        for cp, cn in zip(p, n):
+            r.checked += 1
+            offset = abs(cp.s_centre - cn.s_centre)
+            r.see(offset, lower_is_worse=False)
+            if offset > spec.symmetry + 1e-6:
+                r.add("error", f"{cut.layer}: P and N cross this slot {offset:.4g} mm apart along the pair "
+                      f"(~{skew_ps(offset, er_eff):.3g} ps of skew; max {spec.symmetry:g} mm)",
+                      cp.point, offset, spec.symmetry, cut.layer)
+    return r
+
+
+def slot_width(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("slot-width", unit="mm", limit=spec.min_slot)
+    for cut in layout.cuts:
+        r.checked += len(cut.slot.geoms)
+        narrow = min_width(cut.slot)
+        if narrow:
+            r.see(narrow.width)
+        for place in narrower_than(cut.slot, spec.min_slot):
+            r.add("error", f"{cut.layer}: slot {place.width:.4g} mm wide (min {spec.min_slot:g})",
+                  place.at, place.width, spec.min_slot, cut.layer)
+    return r
+
+
+COPPER_MARGIN_MM = 1.0
+"""Plane kept around a cut for the copper-width check; wider than any fab minimum, so its outer edge never flags."""
+
+
+def cut_copper(cut) -> shapely.Geometry:
+    """Copper around and inside a cut: a margin of plane around the outline, minus the slots."""
+    around = cut.outline.buffer(COPPER_MARGIN_MM, join_style="mitre")
+    return around.difference(cut.slot)
+
+
+def copper_width(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("copper-width", unit="mm", limit=spec.min_copper)
+    for cut in layout.cuts:
+        copper = cut_copper(cut)
+        r.checked += len(getattr(copper, "geoms", [copper]))
+        narrow = min_width(copper)
+        if narrow:
+            r.see(narrow.width)
+        for place in narrower_than(copper, spec.min_copper):
+            r.add("error", f"{cut.layer}: copper neck {place.width:.4g} mm wide (min {spec.min_copper:g})",
+                  place.at, place.width, spec.min_copper, cut.layer)
+    return r
+
+
+def bridge_keepout(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("bridge-keepout", unit="mm", limit=spec.bridge_keep)
+    traces = [t.polygon for t in layout.traces]
+    for cut in layout.cuts:
+        for bridge in cut.bridge.geoms:
+            r.checked += 1
+            distance = min(bridge.distance(t) for t in traces)
+            r.see(distance)
+            if distance < spec.bridge_keep - 1e-6:
+                c = bridge.centroid
+                r.add("error", f"{cut.layer}: bridge {distance:.4g} mm from a trace (keep {spec.bridge_keep:g})",
+                      (c.x, c.y), distance, spec.bridge_keep, cut.layer)
+    return r
+
+
+def bridge_symmetry(layout: Layout, ctx: BoardContext) -> RuleResult:
+    r = RuleResult("bridge-symmetry", unit="mm2", limit=0.0)
+    for cut in layout.cuts:
+        bridges = unary_union(list(cut.bridge.geoms))
+        if bridges.is_empty:
+            continue
+        for cell in layout.cells:
+            local = bridges.intersection(cell.outer)
+            if local.is_empty:
+                continue
+            r.checked += 1
+            mirrored = _mirror(local, cell.centre, math.radians(cell.rotation_deg))
+            mismatch = local.symmetric_difference(mirrored).area
+            r.see(mismatch, lower_is_worse=False)
+            if mismatch > 1e-6:
+                r.add("error", f"{cut.layer}: cell {cell.index} bridges are not mirror-symmetric about the pair "
+                      f"({mismatch:.4g} mm2 differ)", cell.centre, mismatch, 0.0, cut.layer)
+    return r
+
+
+def _mirror(geometry, centre, heading: float):
+    """Reflect across the line through ``centre`` at ``heading``."""
+    c2, s2 = math.cos(2 * heading), math.sin(2 * heading)
+    x0, y0 = centre
+    # p' = c + R (p - c) with R the reflection matrix [[c2, s2], [s2, -c2]]
+    return affine_transform(geometry, [c2, s2, s2, -c2, x0 - c2 * x0 - s2 * y0, y0 - s2 * x0 + c2 * y0])
+
+
+def cell_overlap(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("cell-overlap", unit="mm", limit=spec.web)
+    cells = layout.cells
+    for i, a in enumerate(cells):
+        for b in cells[i + 1:]:
+            r.checked += 1
+            if a.patch.intersects(b.patch) and a.patch.intersection(b.patch).area > 1e-9:
+                r.add("error", f"cells {a.index} and {b.index} overlap", a.centre)
+                continue
+            gap = a.outer.distance(b.outer)
+            adjacent = abs(b.index - a.index) == 1
+            if spec.web > 0 and adjacent:
+                r.see(gap)
+                if gap < spec.web - 1e-6:
+                    r.add("error", f"cells {a.index} and {b.index}: web {gap:.4g} mm where cut.web = {spec.web:g}; "
+                          "their slots merge", b.centre, gap, spec.web)
+    return r
+
+
+def plane_edge(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("plane-edge", unit="mm", limit=spec.edge_clearance)
+    if ctx.plane_outline is None:
+        r.note = "no plane outline given"
+        return r
+    edge = ctx.plane_outline.exterior
+    for cell in layout.cells:
+        r.checked += 1
+        inside = ctx.plane_outline.contains(cell.outer)
+        distance = cell.outer.distance(edge) if inside else 0.0
+        r.see(distance)
+        if not inside:
+            r.add("error", f"cell {cell.index} is not inside the plane outline", cell.centre, 0.0, spec.edge_clearance)
+        elif distance < spec.edge_clearance - 1e-6:
+            r.add("error", f"cell {cell.index} is {distance:.4g} mm from the plane edge (min {spec.edge_clearance:g})",
+                  cell.centre, distance, spec.edge_clearance)
+    return r
+
+
+def stripline_cut(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("stripline-cut", unit="%", limit=95.0)
+    centre = layout.cells[0].centre
+    if len(layout.cuts) == 1:
+        r.checked += 1
+        if ctx.sandwiched:
+            r.add("error", f"the pair on {spec.pair_layer} has planes on both sides but only {layout.cuts[0].layer} "
+                  "is cut: the return current takes the solid plane and the notch mostly vanishes", centre)
+        elif ctx.sandwiched is None and spec.pair_layer.startswith("In"):
+            r.add("warning", f"the pair is on inner layer {spec.pair_layer} and only {layout.cuts[0].layer} is cut; "
+                  "if it is referenced to planes on both sides, cut both", centre)
+        return r
+    first = layout.cuts[0]
+    for other in layout.cuts[1:]:
+        r.checked += 1
+        overlap = first.patch.intersection(other.patch).area
+        base = max(first.patch.area, other.patch.area)
+        ratio = 100.0 * overlap / base if base else 0.0
+        r.see(ratio)
+        if ratio < 95.0 - 1e-9:
+            r.add("error", f"patches on {first.layer} and {other.layer} overlap {ratio:.1f} % (min 95 %)", centre,
+                  ratio, 95.0, other.layer)
+    return r
+
+
+def _layer_index(name: str) -> float:
+    if name == "F.Cu":
+        return 0.0
+    if name == "B.Cu":
+        return math.inf
+    if name.startswith("In") and name.endswith(".Cu") and name[2:-3].isdigit():
+        return float(name[2:-3])
+    return math.nan
+
+
+def _references(layer: str, spec: FilterSpec, ctx: BoardContext) -> list[str]:
+    """Cut planes a signal layer is referenced to."""
+    if ctx.references is not None:
+        return [p for p in ctx.references.get(layer, ()) if p in spec.plane_layers]
+    if layer == spec.pair_layer:
+        return list(spec.plane_layers)
+    i = _layer_index(layer)
+    return [p for p in spec.plane_layers if abs(_layer_index(p) - i) == 1]
+
+
+def foreign_track(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("foreign-track", unit="mm", limit=0.0)
+    own = set(spec.nets)
+    for track in ctx.tracks:
+        if track.net and track.net in own:
+            continue
+        planes = _references(track.layer, spec, ctx)
+        if not planes:
+            continue
+        body = LineString(track.points).buffer(track.width / 2, cap_style="round")
+        for layer in planes:
+            cut = layout.cut(layer)
+            r.checked += 1
+            over_slot = body.intersection(cut.slot)
+            over_patch = body.intersection(cut.patch)
+            if not over_slot.is_empty:
+                at = over_slot.representative_point()
+                r.add("error", f"{track.layer} track {track.net or '(no net)'} crosses a slot of {layer}",
+                      (at.x, at.y), layer=layer)
+            elif not over_patch.is_empty:
+                at = over_patch.representative_point()
+                r.add("error", f"{track.layer} track {track.net or '(no net)'} runs over a patch of {layer}",
+                      (at.x, at.y), layer=layer)
+    return r
+
+
+def foreign_via(layout: Layout, ctx: BoardContext) -> RuleResult:
+    spec = layout.spec
+    r = RuleResult("foreign-via", unit="mm", limit=0.0)
+    floating = spec.style != "bridged"
+    for via in ctx.vias:
+        disk = Point(via.at).buffer(via.diameter / 2, quad_segs=16)
+        for cut in layout.cuts:
+            r.checked += 1
+            if disk.intersects(cut.patch):
+                severity = "error" if floating else "warning"
+                why = ("a plane-net via shorts a floating patch" if via.net == spec.plane_net
+                       else "it needs an antipad that reshapes the patch")
+                r.add(severity, f"{cut.layer}: via/pad {via.net or '(no net)'} through a patch: {why}", via.at, layer=cut.layer)
+            elif disk.distance(cut.slot) < via.diameter:
+                gap = disk.distance(cut.slot)
+                r.see(gap)
+                r.add("warning", f"{cut.layer}: via/pad {via.net or '(no net)'} {gap:.4g} mm from a slot", via.at,
+                      gap, via.diameter, cut.layer)
+    return r
+
+
+def fold_skew(layout: Layout, ctx: BoardContext) -> RuleResult:
+    """P/N length difference between the first and last slot crossing, from the measured crossing positions."""
+    spec = layout.spec
+    r = RuleResult("fold-skew", unit="ps", limit=spec.skew_limit_ps)
+    cut = layout.cuts[0]
+    p, n = _paired(layout, cut.layer)
+    if len(p) < 2 or len(p) != len(n):
+        return r
+    p_span = p[-1].s_trace - p[0].s_trace
+    n_span = n[-1].s_trace - n[0].s_trace
+    diff = round(p_span - n_span, 6) + 0.0
+    er_eff = effective_permittivity(spec)
+    ps = skew_ps(diff, er_eff)
+    r.checked += 1
+    r.see(ps, lower_is_worse=False)
+    turns = len(layout.turns)
+    r.note = (f"P-N length through the filter {diff:+.4g} mm ({ps:.3g} ps)"
+              + (f"; {turns} U-turns alternating, {abs(layout.turns[0].p_minus_n):.4g} mm each" if turns else ""))
+    if ps > spec.skew_limit_ps + 1e-9:
+        r.add("error", f"P-N length difference through the filter {diff:+.4g} mm = {ps:.3g} ps "
+              f"(max {spec.skew_limit_ps:g} ps)", p[0].point, ps, spec.skew_limit_ps)
+    return r
+
+
+def notch_target(layout: Layout, ctx: BoardContext) -> RuleResult:
+    """Light sanity check: fundamental cavity mode of each patch, f10 = c / (2 a sqrt(er)), against the target."""
+    spec = layout.spec
+    r = RuleResult("notch-target", unit="%", limit=100 * spec.target_tolerance)
+    if spec.target_hz is None:
+        r.note = "no target given"
+        return r
+    if spec.style == "bridged":
+        r.note = "bridged cells resonate below their cavity mode; see the estimate"
+        return r
+    for cell in layout.cells:
+        r.checked += 1
+        rect = cell.patch.minimum_rotated_rectangle
+        xy = np.asarray(rect.exterior.coords)
+        longest = max(np.linalg.norm(xy[1] - xy[0]), np.linalg.norm(xy[2] - xy[1]))
+        f10 = C0 / (2 * longest * 1e-3 * math.sqrt(spec.er))
+        off = 100 * (f10 / spec.target_hz - 1)
+        r.see(abs(off), lower_is_worse=False)
+        if abs(off) > 100 * spec.target_tolerance:
+            r.add("warning", f"cell {cell.index}: fundamental cavity mode {f10 / 1e9:.3g} GHz is {off:+.0f} % from "
+                  f"the target {spec.target_hz / 1e9:.3g} GHz (estimate; confirm with a field solve)",
+                  cell.centre, abs(off), 100 * spec.target_tolerance)
+    return r
+
+
+RULE_FUNCTIONS = (
+    crossing_count, crossing_along, crossing_angle, corner_margin, crossing_symmetry, slot_width, copper_width,
+    bridge_keepout, bridge_symmetry, cell_overlap, plane_edge, stripline_cut, foreign_track, foreign_via, fold_skew,
+    notch_target,
+)
