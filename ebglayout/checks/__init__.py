@@ -99,12 +99,16 @@ def _fmt(value) -> str:
     return "-" if value is None else f"{value:.4g}"
 
 
-def run_checks(layout, context=None) -> CheckReport:
+def run_checks(layout, context=None, estimate=None) -> CheckReport:
     """Run every rule on a layout; ``context`` adds board copper, outline and stack-up (default: from the spec)."""
+    from dataclasses import replace
+
     from .rules import RULE_FUNCTIONS, context_from_spec
     from .widths import min_width
 
     ctx = context if context is not None else context_from_spec(layout.spec)
+    if estimate is not None:
+        ctx = replace(ctx, estimate=estimate)
     results = tuple(rule(layout, ctx) for rule in RULE_FUNCTIONS)
     by_layer = {cut.layer: {pol: len(layout.full_crossings(cut.layer, pol)) for pol in ("P", "N")}
                 for cut in layout.cuts}

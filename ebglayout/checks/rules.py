@@ -92,8 +92,8 @@ class RuleResult:
 
 
 @dataclass(frozen=True)
-class BoardContext:
-    """What the checks know beyond the layout: other copper, the plane outline, and the stack-up around the pair.
+class CheckContext:
+    """What the checks know beyond the layout: other copper, the plane outline, the stack-up, the notch estimate.
 
     ``sandwiched`` is True when the pair's layer has a plane on each side (from the
     board stack-up), False when it has one, None when unknown (spec only).
@@ -105,11 +105,13 @@ class BoardContext:
     sandwiched: bool | None = None
     references: dict[str, tuple[str, ...]] | None = None
     """Signal layer -> plane layers it is referenced to; None = infer from layer names."""
+    estimate: object = None
+    """The notch estimate (ebglayout.estimate), when one was made."""
 
 
-def context_from_spec(spec: FilterSpec) -> BoardContext:
+def context_from_spec(spec: FilterSpec) -> CheckContext:
     outline = Polygon(spec.plane_outline) if spec.plane_outline else None
-    return BoardContext(tracks=spec.track_obstacles, vias=spec.via_obstacles, plane_outline=outline)
+    return CheckContext(tracks=spec.track_obstacles, vias=spec.via_obstacles, plane_outline=outline)
 
 
 def _paired(layout: Layout, layer: str) -> tuple[list[Crossing], list[Crossing]]:
@@ -124,7 +126,7 @@ def expected_crossings(spec: FilterSpec) -> int:
     return per_pass * spec.passes
 
 
-def crossing_count(layout: Layout, ctx: BoardContext) -> RuleResult:
+def crossing_count(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("crossing-count", unit="")
     required = spec.crossings if spec.crossings is not None else spec.min_crossings
@@ -155,7 +157,7 @@ def crossing_count(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def crossing_along(layout: Layout, ctx: BoardContext) -> RuleResult:
+def crossing_along(layout: Layout, ctx: CheckContext) -> RuleResult:
     r = RuleResult("crossing-along", unit="mm", limit=0.0)
     for c in layout.crossings:
         r.checked += 1
@@ -170,7 +172,7 @@ def crossing_along(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def crossing_angle(layout: Layout, ctx: BoardContext) -> RuleResult:
+def crossing_angle(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("crossing-angle", unit="deg", limit=spec.min_angle)
     for c in layout.crossings:
@@ -184,7 +186,7 @@ def crossing_angle(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def corner_margin(layout: Layout, ctx: BoardContext) -> RuleResult:
+def corner_margin(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("corner-margin", unit="mm", limit=spec.corner_margin)
     for c in layout.crossings:
@@ -198,7 +200,7 @@ def corner_margin(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def crossing_symmetry(layout: Layout, ctx: BoardContext) -> RuleResult:
+def crossing_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("crossing-symmetry", unit="mm", limit=spec.symmetry)
     er_eff = effective_permittivity(spec)
@@ -215,7 +217,7 @@ def crossing_symmetry(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def slot_width(layout: Layout, ctx: BoardContext) -> RuleResult:
+def slot_width(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("slot-width", unit="mm", limit=spec.min_slot)
     for cut in layout.cuts:
@@ -239,7 +241,7 @@ def cut_copper(cut) -> shapely.Geometry:
     return around.difference(cut.slot)
 
 
-def copper_width(layout: Layout, ctx: BoardContext) -> RuleResult:
+def copper_width(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("copper-width", unit="mm", limit=spec.min_copper)
     for cut in layout.cuts:
@@ -254,7 +256,7 @@ def copper_width(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def bridge_keepout(layout: Layout, ctx: BoardContext) -> RuleResult:
+def bridge_keepout(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("bridge-keepout", unit="mm", limit=spec.bridge_keep)
     traces = [t.polygon for t in layout.traces]
@@ -270,7 +272,7 @@ def bridge_keepout(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def bridge_symmetry(layout: Layout, ctx: BoardContext) -> RuleResult:
+def bridge_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
     r = RuleResult("bridge-symmetry", unit="mm2", limit=0.0)
     for cut in layout.cuts:
         bridges = unary_union(list(cut.bridge.geoms))
@@ -298,7 +300,7 @@ def _mirror(geometry, centre, heading: float):
     return affine_transform(geometry, [c2, s2, s2, -c2, x0 - c2 * x0 - s2 * y0, y0 - s2 * x0 + c2 * y0])
 
 
-def cell_overlap(layout: Layout, ctx: BoardContext) -> RuleResult:
+def cell_overlap(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("cell-overlap", unit="mm", limit=spec.web)
     cells = layout.cells
@@ -318,7 +320,7 @@ def cell_overlap(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def plane_edge(layout: Layout, ctx: BoardContext) -> RuleResult:
+def plane_edge(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("plane-edge", unit="mm", limit=spec.edge_clearance)
     if ctx.plane_outline is None:
@@ -338,7 +340,7 @@ def plane_edge(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def stripline_cut(layout: Layout, ctx: BoardContext) -> RuleResult:
+def stripline_cut(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("stripline-cut", unit="%", limit=95.0)
     centre = layout.cells[0].centre
@@ -374,7 +376,7 @@ def _layer_index(name: str) -> float:
     return math.nan
 
 
-def _references(layer: str, spec: FilterSpec, ctx: BoardContext) -> list[str]:
+def _references(layer: str, spec: FilterSpec, ctx: CheckContext) -> list[str]:
     """Cut planes a signal layer is referenced to."""
     if ctx.references is not None:
         return [p for p in ctx.references.get(layer, ()) if p in spec.plane_layers]
@@ -384,7 +386,7 @@ def _references(layer: str, spec: FilterSpec, ctx: BoardContext) -> list[str]:
     return [p for p in spec.plane_layers if abs(_layer_index(p) - i) == 1]
 
 
-def foreign_track(layout: Layout, ctx: BoardContext) -> RuleResult:
+def foreign_track(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("foreign-track", unit="mm", limit=0.0)
     own = set(spec.nets)
@@ -411,7 +413,7 @@ def foreign_track(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def foreign_via(layout: Layout, ctx: BoardContext) -> RuleResult:
+def foreign_via(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("foreign-via", unit="mm", limit=0.0)
     floating = spec.style != "bridged"
@@ -432,7 +434,7 @@ def foreign_via(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def fold_skew(layout: Layout, ctx: BoardContext) -> RuleResult:
+def fold_skew(layout: Layout, ctx: CheckContext) -> RuleResult:
     """P/N length difference between the first and last slot crossing, from the measured crossing positions."""
     spec = layout.spec
     r = RuleResult("fold-skew", unit="ps", limit=spec.skew_limit_ps)
@@ -456,12 +458,25 @@ def fold_skew(layout: Layout, ctx: BoardContext) -> RuleResult:
     return r
 
 
-def notch_target(layout: Layout, ctx: BoardContext) -> RuleResult:
-    """Light sanity check: fundamental cavity mode of each patch, f10 = c / (2 a sqrt(er)), against the target."""
+def notch_target(layout: Layout, ctx: CheckContext) -> RuleResult:
+    """Target against the estimated band over the tolerance sweep; without an estimate, f10 = c / (2 a sqrt(er))."""
     spec = layout.spec
     r = RuleResult("notch-target", unit="%", limit=100 * spec.target_tolerance)
     if spec.target_hz is None:
         r.note = "no target given"
+        return r
+    if ctx.estimate is not None:
+        est = ctx.estimate.to_json()
+        low, high = est["band"]["low_hz"], est["band"]["high_hz"]
+        r.checked += 1
+        off = 0.0 if low <= spec.target_hz <= high else 100 * min(abs(spec.target_hz / low - 1), abs(spec.target_hz / high - 1))
+        r.see(off, lower_is_worse=False)
+        r.limit = 0.0
+        r.note = f"estimated band {low / 1e9:.3g} to {high / 1e9:.3g} GHz over the er/h sweep"
+        if not est.get("target_in_band", True):
+            r.add("warning", f"target {spec.target_hz / 1e9:.3g} GHz is outside the estimated notch band "
+                  f"{low / 1e9:.3g} to {high / 1e9:.3g} GHz over the er/h tolerance sweep (estimate; confirm with a "
+                  "field solve)", layout.cells[0].centre, off, 0.0)
         return r
     if spec.style == "bridged":
         r.note = "bridged cells resonate below their cavity mode; see the estimate"

@@ -1,0 +1,213 @@
+"""Command line: a thin shell over ebglayout.pipeline.  Exit 0 clean, 1 rule failures, 2 bad input."""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import EbgError
+
+EXAMPLES = {
+    "demo": "ebglayout demo --out ./ebglayout-demo",
+    "build": "ebglayout build samples/hx2_l0_tx_straight.toml --out out/",
+    "check": "ebglayout check samples/hx2_l0_tx_straight.toml --json",
+    "estimate": "ebglayout estimate samples/hx2_l2_tx_bridged.toml",
+    "size": "ebglayout size --target 8GHz --er 4.1 --h 0.1 --style bridged --bridge 0.12,0.6",
+    "refine": "ebglayout refine samples/hx2_l0_tx_straight.toml --observed 15.2GHz",
+    "params": "ebglayout params --markdown",
+}
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="ebglayout",
+        description="Plane-cut EBG common-mode filters under routed differential pairs: build, check, estimate, export.",
+        epilog="The tool draws, checks and estimates; compliance rests on field solves, measurements, the applicable "
+               "EMC standards and the responsible engineer.")
+    parser.add_argument("--version", action="version", version=f"ebglayout {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    def command(name: str, help_text: str) -> argparse.ArgumentParser:
+        p = sub.add_parser(name, help=help_text, description=help_text, epilog=f"example: {EXAMPLES[name]}"
+                           if name in EXAMPLES else None)
+        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show a traceback on errors")
+        return p
+
+    p = command("demo", "build every bundled sample into a folder and print a summary per filter")
+    p.add_argument("--out", type=Path, default=Path("ebglayout-demo"), help="output folder (default ./ebglayout-demo)")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
+
+    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png and report.json")
+    p.add_argument("spec", type=Path)
+    p.add_argument("--out", type=Path, required=True, help="output folder")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
+
+    p = command("check", "run the design-rule checks on a spec")
+    p.add_argument("spec", type=Path)
+    p.add_argument("--json", action="store_true", help="print the JSON report instead of the table")
+    p.add_argument("--junit", type=Path, help="also write a JUnit XML file (one test case per rule)")
+    p.add_argument("--strict", action="store_true", help="warnings fail too (exit 1)")
+
+    p = command("estimate", "estimate where the drawn cut notches (cavity modes, bridged-cell LC, band)")
+    p.add_argument("spec", type=Path)
+    p.add_argument("--json", action="store_true", help="print JSON")
+
+    p = command("size", "first-pass patch size for a target notch")
+    p.add_argument("--target", required=True, help='frequency ("8GHz") or NRZ data rate ("16Gbps")')
+    p.add_argument("--er", type=float, required=True, help="dielectric constant between cut plane and next plane")
+    p.add_argument("--h", default="0.1", help="that dielectric's thickness (default 0.1 mm)")
+    p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
+    p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE] in mm")
+    p.add_argument("--json", action="store_true", help="print JSON")
+
+    p = command("refine", "correct a spec's dimensions from the notch a simulation observed")
+    p.add_argument("spec", type=Path)
+    p.add_argument("--observed", required=True, help='notch frequency the simulation found, e.g. "7.4GHz"')
+    p.add_argument("--json", action="store_true", help="print JSON")
+
+    command("params", "list every spec key with its default and meaning").add_argument(
+        "--markdown", action="store_true", help="as a Markdown table (for the README)")
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return 2
+    try:
+        return COMMANDS[args.command](args)
+    except EbgError as err:
+        if getattr(args, "debug", False):
+            raise
+        print(f"ebglayout: error: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        sys.stderr.close()
+        return 0
+    except KeyboardInterrupt:
+        print("ebglayout: interrupted", file=sys.stderr)
+        return 130
+    except OSError as err:
+        if getattr(args, "debug", False):
+            raise
+        print(f"ebglayout: error: {err.filename or ''}: {err.strerror or err}", file=sys.stderr)
+        return 2
+
+
+def _demo(args) -> int:
+    from .pipeline import build_to_folder, output_names
+    from .outputs import StagedOutputs
+    from .bundled import sample_specs
+    from .spec import load_spec
+
+    specs = [load_spec(p) for p in sample_specs()]
+    staged = StagedOutputs(args.out, force=args.force)
+    staged.require_free([n for s in specs for n in output_names(s.name) if n != "report.json"])
+    worst = 0
+    for spec in specs:
+        result = build_to_folder(spec, args.out / spec.name, force=args.force)
+        c = result.checks
+        est = result.estimate.to_json() if result.estimate is not None else None
+        band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
+        print(f"{spec.name:<22} {spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
+              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch band {band}  "
+              f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / spec.name}")
+        worst = max(worst, 1 if c.errors else 0)
+    print("Estimates are for placement and review; confirm with a field solve and measurement.")
+    return worst
+
+
+def _build(args) -> int:
+    from .pipeline import build_to_folder
+    from .spec import load_spec
+
+    result = build_to_folder(load_spec(args.spec), args.out, force=args.force)
+    print(result.checks.format_table())
+    print(f"wrote {', '.join(sorted(p.name for p in args.out.iterdir() if p.name.startswith(result.name)))} "
+          f"and report.json to {args.out}")
+    return 1 if result.checks.errors else 0
+
+
+def _check(args) -> int:
+    from .pipeline import make_filter
+    from .spec import load_spec
+
+    result = make_filter(load_spec(args.spec))
+    report = result.checks
+    if args.junit:
+        from .checks.junit import junit_xml
+        from .outputs import StagedOutputs
+
+        with StagedOutputs(args.junit.parent if str(args.junit.parent) else Path("."), force=True) as staged:
+            staged.write_text(args.junit.name, junit_xml([report], strict=args.strict))
+    if args.json:
+        print(json.dumps(report.to_json(), indent=2))
+    else:
+        print(report.format_table())
+    failed = bool(report.errors) or (args.strict and bool(report.warnings))
+    return 1 if failed else 0
+
+
+def _estimate(args) -> int:
+    from .estimate.band import estimate_layout, format_table
+    from .layout import build_layout
+    from .spec import load_spec
+
+    estimate = estimate_layout(build_layout(load_spec(args.spec)))
+    print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate))
+    return 0
+
+
+def _size(args) -> int:
+    from .estimate.sizing import format_sizing, size_for_target
+    from .units import parse_frequency, parse_length
+
+    bridge = None
+    if args.bridge:
+        parts = args.bridge.split(",")
+        if len(parts) not in (2, 3):
+            raise EbgError(f"--bridge = {args.bridge}: must be WIDTH,LENGTH[,PER_SIDE] in mm")
+        bridge = (parse_length(parts[0], "--bridge width"), parse_length(parts[1], "--bridge length"),
+                  int(parts[2]) if len(parts) == 3 and parts[2].strip().isdigit() else 1)
+    if not 1.0 <= args.er <= 30.0:
+        raise EbgError(f"--er = {args.er:g}: must be between 1 and 30")
+    result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style,
+                             h=parse_length(args.h, "--h"), bridge=bridge)
+    print(json.dumps(result, indent=2) if args.json else format_sizing(result))
+    return 0
+
+
+def _refine(args) -> int:
+    from .estimate.sizing import format_refine, refine
+    from .spec import load_spec
+    from .units import parse_frequency
+
+    result = refine(load_spec(args.spec), parse_frequency(args.observed, "--observed"))
+    print(json.dumps(result, indent=2) if args.json else format_refine(result))
+    return 0
+
+
+def _params(args) -> int:
+    from .spec import PARAMETERS, REQUIRED
+
+    if args.markdown:
+        print("| key | default | meaning |\n|---|---|---|")
+    for p in PARAMETERS:
+        default = "required" if p.default is REQUIRED else ("-" if p.default in (None, ()) else str(p.default))
+        if args.markdown:
+            print(f"| `{p.key}` | {default} | {p.help} |")
+        else:
+            print(f"{p.key:<24} {default:<12} {p.help}")
+    return 0
+
+
+COMMANDS = {"demo": _demo, "build": _build, "check": _check, "estimate": _estimate, "size": _size,
+            "refine": _refine, "params": _params}
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,38 @@
+#!/usr/bin/env bash
+# The README's test command: install what the tests need, then run the whole suite.
+# On Debian as root it also installs KiCad (Debian package 'kicad') so the KiCad-backed
+# tests run against KiCad's own pcbnew; elsewhere those tests skip and say why.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+
+python=python3
+if [ "$(id -u)" = "0" ] && command -v apt-get >/dev/null 2>&1; then
+    if [ ! -e /usr/lib/python3/dist-packages/pcbnew.py ]; then
+        echo "== installing Debian's kicad and python3-venv (about 30 s)"
+        apt-get update -qq
+        DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends kicad python3-venv >/dev/null
+    fi
+fi
+if [ -e /usr/lib/python3/dist-packages/pcbnew.py ] && [ -x /usr/bin/python3 ]; then
+    # pcbnew is built for Debian's own python3: test in a venv made from it, which also sees pcbnew.
+    if ! /usr/bin/python3 -c "import venv, ensurepip" >/dev/null 2>&1 && [ "$(id -u)" = "0" ]; then
+        DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends python3-venv >/dev/null
+    fi
+    if [ ! -x .venv-kicad/bin/python ]; then
+        /usr/bin/python3 -m venv --system-site-packages .venv-kicad
+    fi
+    python=.venv-kicad/bin/python
+    export EBGLAYOUT_REQUIRE_KICAD=1
+else
+    echo "== KiCad is not installed here: the KiCad-backed tests will be skipped with that reason"
+fi
+echo "== installing ebglayout and its test dependencies into $("$python" -c 'import sys; print(sys.prefix)')"
+"$python" -m pip install -q --disable-pip-version-check -e ".[test]"
+echo "== running the test suite"
+status=0
+"$python" -m pytest -q -p no:cacheprovider "$@" || status=$?
+if [ "$status" = "5" ]; then
+    echo "pytest collected no tests" >&2
+    exit 1
+fi
+exit "$status"
