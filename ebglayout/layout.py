@@ -148,12 +148,8 @@ def build_layout(spec: FilterSpec) -> Layout:
 
 def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Trace:
     sign = 1.0 if polarity == "P" else -1.0
-    line = offset_pieces(route, sign * spec.trace_offset)
-    polygon = line.buffer(spec.pair_width / 2, cap_style="flat", join_style="mitre", mitre_limit=100.0)
-    polygon = as_multipolygon(polygon)
-    poly = max(polygon.geoms, key=lambda p: p.area)
     net = spec.nets[0] if polarity == "P" else spec.nets[1]
-    return Trace(polarity, net, spec.pair_layer, spec.pair_width, line, poly)
+    return trace_from_line(polarity, net, spec.pair_layer, spec.pair_width, offset_pieces(route, sign * spec.trace_offset))
 
 
 def route_length_difference(layout: Layout) -> float:
@@ -173,3 +169,21 @@ def effective_permittivity(spec: FilterSpec) -> float:
 def skew_ps(length_mm: float, er_eff: float) -> float:
     """Delay of ``length_mm`` of line at ``er_eff``: t = L * sqrt(er_eff) / c."""
     return abs(length_mm) * 1e-3 * math.sqrt(er_eff) / 299_792_458.0 * 1e12
+
+
+def with_copper(layout: Layout, traces: tuple[Trace, ...] | None = None,
+                cuts: tuple[PlaneCut, ...] | None = None) -> Layout:
+    """The same layout with other traces and/or cuts (as read from a board), crossings measured again."""
+    from dataclasses import replace
+
+    traces = traces if traces is not None else layout.traces
+    cuts = cuts if cuts is not None else layout.cuts
+    crossings = tuple(c for cut in cuts for t in traces
+                      for c in find_crossings(t.centreline, t.polarity, t.width, cut, layout.centreline))
+    return replace(layout, traces=traces, cuts=cuts, crossings=crossings)
+
+
+def trace_from_line(polarity: str, net: str, layer: str, width: float, line: LineString) -> Trace:
+    """A trace given by its own centre-line (e.g. chained from board tracks)."""
+    polygon = line.buffer(width / 2, cap_style="flat", join_style="mitre", mitre_limit=100.0)
+    return Trace(polarity, net, layer, width, on_grid(line), max(as_multipolygon(polygon).geoms, key=lambda p: p.area))

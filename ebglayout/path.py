@@ -11,7 +11,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import shapely
 from shapely.geometry import LineString
 
 from .errors import SpecError

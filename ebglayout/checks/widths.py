@@ -58,7 +58,6 @@ def facing_widths(polygon) -> list[Narrow]:
         hi = np.minimum(np.maximum(ta, tb), length[i])
         overlap = hi - lo > 1e-9
         for k in np.nonzero(overlap)[0]:
-            j = js[k]
             # Perpendicular distance of edge j above edge i at the ends of the common projection.
             span = tb[k] - ta[k]
             dist = []
