@@ -200,9 +200,9 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
     reader = _Reader(flat, units.lower())
     value = reader.value
 
+    pair_width, pair_spacing = value("pair.width"), value("pair.spacing")
     style = value("cut.style")
     patches = _cell_sizes(reader)
-    pair_width, pair_spacing = value("pair.width"), value("pair.spacing")
     h = value("stackup.h")
     spec = FilterSpec(
         name=_file_name(value("name") or default_name),
