@@ -14,6 +14,12 @@ import shapely
 from shapely.geometry.polygon import orient
 
 
+FACING_COS = 1e-3
+"""Edges face each other when their inward normals are more than ~90.06 deg apart; the margin keeps the
+right-angle corners of grid-snapped rotated rectangles (90 +- 1e-7 deg) out, as a mask DRC's 90-degree
+ignore angle does."""
+
+
 @dataclass(frozen=True)
 class Narrow:
     """A place where a polygon is narrower than a limit: the width and the midpoint between the two edges."""
@@ -47,7 +53,7 @@ def facing_widths(polygon) -> list[Narrow]:
     shapely.prepare(grown)
     found: list[Narrow] = []
     for i in range(len(a)):
-        facing = (inward @ inward[i]) < -1e-9
+        facing = (inward @ inward[i]) < -FACING_COS
         if not facing.any():
             continue
         js = np.nonzero(facing)[0]

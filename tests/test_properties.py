@@ -1,0 +1,70 @@
+"""Property tests over random specs: the engine builds valid geometry with its invariants, or refuses cleanly.
+
+Seeded (derandomize) and bounded so CI is reproducible and quick.
+"""
+from __future__ import annotations
+
+import math
+
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from ebglayout.checks import run_checks
+from ebglayout.errors import EbgError
+from ebglayout.layout import build_layout
+from ebglayout.spec import spec_from_dict
+
+lengths = st.floats(min_value=0.03, max_value=0.4, allow_nan=False)
+
+
+@st.composite
+def random_specs(draw):
+    style = draw(st.sampled_from(["straight", "bridged", "folded"]))
+    n_points = draw(st.integers(2, 4))
+    heading = draw(st.floats(-math.pi, math.pi))
+    points = [(0.0, 0.0)]
+    for _ in range(n_points - 1):
+        run = draw(st.floats(3.0, 40.0))
+        x, y = points[-1]
+        points.append((round(x + run * math.cos(heading), 4), round(y + run * math.sin(heading), 4)))
+        heading += math.radians(draw(st.floats(-135.0, 135.0)))
+    slot = draw(st.floats(0.05, 0.4))
+    along = draw(st.floats(0.5, 6.0))
+    across = draw(st.floats(0.5, 6.0))
+    cut = {"style": style, "patch": [along, across], "count": draw(st.integers(1, 4)), "slot": slot,
+           "web": draw(st.sampled_from([0.0, 0.1, 0.3]))}
+    if style == "bridged":
+        cut["bridge"] = {"width": draw(st.floats(0.05, 0.3)), "length": slot + draw(st.floats(0.0, 0.8)),
+                         "per_side": draw(st.integers(1, 2))}
+    if style == "folded":
+        cut["passes"] = draw(st.sampled_from([3, 5]))
+    return {
+        "pair": {"width": draw(lengths), "spacing": draw(lengths), "path": [list(p) for p in points]},
+        "cut": cut,
+        "stackup": {"er": draw(st.floats(2.0, 10.0)), "h": draw(st.floats(0.05, 0.5))},
+        "rules": {"corner_margin": draw(st.floats(0.0, 0.5))},
+    }
+
+
+@settings(max_examples=150, derandomize=True, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(random_specs())
+def test_engine_builds_valid_geometry_or_refuses(data):
+    try:
+        spec = spec_from_dict(data)
+        layout = build_layout(spec)
+    except EbgError as err:
+        assert "\n" not in str(err)
+        return
+    implied = (spec.count + 1 if spec.web == 0 else 2 * spec.count) * spec.passes
+    for cut in layout.cuts:
+        for role in ("slot", "patch", "bridge", "outline"):
+            assert cut.role(role).is_valid
+        p = layout.full_crossings(cut.layer, "P")
+        n = layout.full_crossings(cut.layer, "N")
+        assert len(p) == len(n) == implied
+        # the slot is exactly its width: erosion by half of it (+-10 nm) empties it / leaves some
+        assert cut.slot.buffer(-(spec.slot / 2 + 1e-5), join_style="mitre").is_empty
+        assert not cut.slot.buffer(-(spec.slot / 2 - 1e-5), join_style="mitre").is_empty
+    report = run_checks(layout)
+    assert report.crossings["P"] == report.crossings["N"]
+    assert abs(report.min_slot_width - spec.slot) < 1e-5
