@@ -77,7 +77,7 @@ PARAMETERS: tuple[Parameter, ...] = (
     Parameter("rules.bridge_keep", "length", None, "least distance from a bridge to a trace (default 3 x stackup.h)"),
     Parameter("rules.edge_clearance", "length", 0.5, "least distance from the cut to the plane outline"),
     Parameter("rules.target_tolerance", "number", 0.15, "relative band around target the light notch check accepts"),
-    Parameter("gds", "layermap", None, "GDSII layer map: {\"In1.Cu/slot\" = [layer, datatype], ...}"),
+    Parameter("gds", "layermap", (), "GDSII layer map: {\"In1.Cu/slot\" = [layer, datatype], ...}"),
     Parameter("obstacles.tracks", "tracks", (), "other copper: [{path=[[x,y],...], width=, layer=, net=}]"),
     Parameter("obstacles.vias", "vias", (), "vias and pads: [{at=[x,y], diameter=, net=}] (through all layers)"),
 )

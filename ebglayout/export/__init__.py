@@ -1,0 +1,91 @@
+"""File exporters: DXF, GDSII and an SVG/PNG preview, all in the layout's board coordinates (mm).
+
+Every writer reads a built ``Layout`` and never re-derives geometry, so a cut
+lands exactly under its pair.  Each file is written atomically: to a temporary
+file in the same folder, then moved into place, so an error leaves no partial
+file behind.  The submodules are imported on demand, so importing this package
+pulls in neither ezdxf, gdstk nor matplotlib.
+"""
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Iterator, Sequence
+
+CAUTION = ("ebglayout draws, checks and estimates; compliance rests on field solves, measurements, "
+           "the applicable EMC standards and the responsible engineer.")
+"""The caution every exported drawing carries."""
+
+EXTENSIONS = ("dxf", "gds", "svg", "png")
+
+
+class CellFrame:
+    """A placed cell's local frame (u along the pair, v across, origin at the patch centre).
+
+    Used to put dimension annotations on a cell's own axes; the geometry itself
+    is only read (local bounds of the engine's polygons), never rebuilt.
+    """
+
+    def __init__(self, cell):
+        self.origin = tuple(float(c) for c in cell.centre)
+        angle = math.radians(cell.rotation_deg)
+        self.cos, self.sin = math.cos(angle), math.sin(angle)
+
+    def local(self, x: float, y: float) -> tuple[float, float]:
+        dx, dy = x - self.origin[0], y - self.origin[1]
+        return (dx * self.cos + dy * self.sin, -dx * self.sin + dy * self.cos)
+
+    def board(self, u: float, v: float) -> tuple[float, float]:
+        return (self.origin[0] + u * self.cos - v * self.sin, self.origin[1] + u * self.sin + v * self.cos)
+
+    def direction(self, du: float, dv: float) -> tuple[float, float]:
+        """A local direction turned onto the board."""
+        return (du * self.cos - dv * self.sin, du * self.sin + dv * self.cos)
+
+    def local_bounds(self, poly) -> tuple[float, float, float, float]:
+        """(u0, v0, u1, v1) of a polygon's exterior in this frame."""
+        pts = [self.local(x, y) for x, y in poly.exterior.coords]
+        us, vs = [p[0] for p in pts], [p[1] for p in pts]
+        return (min(us), min(vs), max(us), max(vs))
+
+
+@contextmanager
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """Yield a temporary path beside ``path``; move it onto ``path`` only if the block succeeds."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    tmp_path = Path(tmp)
+    os.chmod(tmp_path, 0o644)
+    try:
+        yield tmp_path
+        os.replace(tmp_path, path)
+    finally:
+        if tmp_path.exists():
+            tmp_path.unlink()
+
+
+def write_all(layout, out_dir: str | Path, findings: Sequence = (), notch: dict | None = None) -> dict[str, Path]:
+    """Write ``<name>.dxf``, ``<name>.gds``, ``<name>.svg`` and ``<name>.png`` into ``out_dir``.
+
+    Returns extension -> path.  ``findings`` (checks.Finding) are marked in the
+    DXF and the preview; ``notch`` is the optional per-cell notch summary the
+    preview plots (see ``preview.write_preview``).
+    """
+    from .dxf import write_dxf
+    from .gds import write_gds
+    from .preview import write_preview
+
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    paths = {ext: out_dir / f"{layout.spec.name}.{ext}" for ext in EXTENSIONS}
+    write_dxf(layout, paths["dxf"], findings)
+    write_gds(layout, paths["gds"])
+    write_preview(layout, paths["svg"], paths["png"], findings, notch)
+    return paths
+
+
+__all__ = ["CAUTION", "EXTENSIONS", "CellFrame", "atomic_path", "write_all"]
