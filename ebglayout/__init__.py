@@ -7,3 +7,7 @@ and the responsible engineer.
 """
 
 __version__ = "0.1.0"
+
+CAUTION = ("ebglayout draws, checks and estimates; compliance rests on field solves, measurements, "
+           "the applicable EMC standards and the responsible engineer")
+"""The one caution line every output that shows checks or estimates carries."""

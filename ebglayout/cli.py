@@ -61,6 +61,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--h", default="0.1", help="that dielectric's thickness (default 0.1 mm)")
     p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
     p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE] in mm")
+    p.add_argument("--slot", default="0.15", help="slot width (default 0.15 mm)")
     p.add_argument("--json", action="store_true", help="print JSON")
 
     p = command("refine", "correct a spec's dimensions from the notch a simulation observed")
@@ -176,8 +177,13 @@ def _size(args) -> int:
                   int(parts[2]) if len(parts) == 3 and parts[2].strip().isdigit() else 1)
     if not 1.0 <= args.er <= 30.0:
         raise EbgError(f"--er = {args.er:g}: must be between 1 and 30")
+    if args.style == "bridged" and bridge is None:
+        raise EbgError("--bridge = (missing): the bridged style needs --bridge WIDTH,LENGTH[,PER_SIDE]")
+    sizes = {k: parse_length(v, f"--{k}") for k, v in (("h", args.h), ("slot", args.slot))}
+    if min(sizes.values()) <= 0:
+        raise EbgError(f"--h = {args.h}, --slot = {args.slot}: both must be > 0")
     result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style,
-                             h=parse_length(args.h, "--h"), bridge=bridge)
+                             h=sizes["h"], bridge=bridge, slot=sizes["slot"])
     print(json.dumps(result, indent=2) if args.json else format_sizing(result))
     return 0
 

@@ -12,9 +12,8 @@ from __future__ import annotations
 
 import json
 
-CAUTION = ("ebglayout draws, checks and estimates plane-cut geometry. Notch frequencies are estimates for placement and "
-           "review; EMC compliance rests on field solves, measurements, the applicable EMC standards and the "
-           "responsible engineer.")
+from . import CAUTION
+
 
 
 def report_data(layout, checks, estimate=None) -> dict:

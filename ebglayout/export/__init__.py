@@ -15,9 +15,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator, Sequence
 
-CAUTION = ("ebglayout draws, checks and estimates; compliance rests on field solves, measurements, "
-           "the applicable EMC standards and the responsible engineer.")
-"""The caution every exported drawing carries."""
+from .. import CAUTION
 
 EXTENSIONS = ("dxf", "gds", "svg", "png")
 

@@ -1,0 +1,217 @@
+"""Notch estimate of the as-drawn cut: per-cell resonances and the band over the stack-up tolerances.
+
+Each cell's patch, as placed in the layout, is a cavity over the next plane
+(``cavity``); a bridged cell is also a lumped LC resonator (``lumped``).
+
+Which resonance sets a bridged cell's notch: the lower of the LC resonance and
+the lowest cavity mode.  The common-mode wave is stopped at the cell's first
+resonance.  The bridges exist to pull that first resonance below the cavity
+mode; while the LC resonance lies well below it the patch is electrically small
+and the lumped model holds ("lc" governs).  When the bridges are too wide or
+short for that, the LC estimate lands above the cavity mode, the lumped model
+no longer describes the patch, and the first resonance is cavity-like
+("cavity" governs).  Near the crossover the two interact and both numbers are
+rough; ``format_table`` says so.
+
+The band: every cell's notch at every corner of the tolerance sweep
+er x (1 - t_er, 1, 1 + t_er) and h x (1 - t_h, 1, 1 + t_h).  A cavity mode
+scales as 1 / sqrt(er) and does not depend on h; the LC resonance, with
+C proportional to er / h and the bridge inductance independent of both, scales
+as sqrt(h / er).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from shapely import affinity
+from shapely.geometry import Polygon
+
+from ..layout import Layout, PlacedCell
+from ..units import GRID_MM, format_hz
+from .cavity import polygon_modes, rect_modes
+from .lumped import lc_notch
+
+CAUTION = "estimate for placement and review, not a substitute for a field solve or measurement"
+INTERACTION = 0.3
+"""Relative distance between the LC and cavity resonances below which the two are said to interact."""
+
+
+@dataclass(frozen=True)
+class Mode:
+    """One cavity resonance: frequency, how it was found, and a label (TMmn for the closed form)."""
+
+    f_hz: float
+    method: str
+    label: str
+
+
+@dataclass(frozen=True)
+class CellEstimate:
+    """Resonances and notch of one placed cell (nominal er and h)."""
+
+    index: int
+    modes: tuple[Mode, ...]
+    lc_f_hz: float | None
+    notch_hz: float
+    governs: str
+
+    def notch_at(self, er_ratio: float, h_ratio: float) -> float:
+        """Notch with er and h scaled by the given ratios (see the module docstring)."""
+        cavity = self.modes[0].f_hz / math.sqrt(er_ratio)
+        if self.lc_f_hz is None:
+            return cavity
+        return min(cavity, self.lc_f_hz * math.sqrt(h_ratio / er_ratio))
+
+    def to_json(self) -> dict:
+        out = {"index": self.index,
+               "modes": [{"f_hz": _hz(m.f_hz), "method": m.method} for m in self.modes]}
+        if self.lc_f_hz is not None:
+            out["lc_f_hz"] = _hz(self.lc_f_hz)
+        out["notch_hz"] = _hz(self.notch_hz)
+        out["governs"] = self.governs
+        return out
+
+
+@dataclass(frozen=True)
+class Corner:
+    """One point of the tolerance sweep and the notch range of all cells there."""
+
+    er: float
+    h: float
+    low_hz: float
+    high_hz: float
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """Per-cell estimates, the swept band and whether the target falls inside it.
+
+    ``low_hz`` / ``high_hz`` span every cell's notch at every sweep corner;
+    ``target_in_band`` is low <= target <= high (None without a target).
+    """
+
+    cells: tuple[CellEstimate, ...]
+    low_hz: float
+    high_hz: float
+    target_hz: float | None
+    target_in_band: bool | None
+    er: float
+    h: float
+    er_tolerance: float
+    h_tolerance: float
+    corners: tuple[Corner, ...]
+
+    def to_json(self) -> dict:
+        """JSON-ready dict with stable keys and values rounded to 1 kHz / 1 nm."""
+        out: dict = {
+            "cells": [c.to_json() for c in self.cells],
+            "band": {"low_hz": _hz(self.low_hz), "high_hz": _hz(self.high_hz)},
+        }
+        if self.target_hz is not None:
+            out["target_hz"] = _hz(self.target_hz)
+        out["target_in_band"] = self.target_in_band
+        out["sweep"] = {
+            "er": _num(self.er), "er_tolerance": _num(self.er_tolerance),
+            "h_mm": _num(self.h), "h_tolerance": _num(self.h_tolerance),
+            "corners": [{"er": _num(c.er), "h_mm": _num(c.h), "low_hz": _hz(c.low_hz), "high_hz": _hz(c.high_hz)}
+                        for c in self.corners],
+        }
+        out["caution"] = CAUTION
+        return out
+
+
+def estimate_layout(layout: Layout, accuracy: float = 0.01) -> Estimate:
+    """Estimate every placed cell's resonances and the notch band of the whole cut."""
+    spec = layout.spec
+    cells = tuple(estimate_cell(cell, spec.er, spec.h, spec.bridge_length, accuracy) for cell in layout.cells)
+    er_ratios = _ratios(spec.er_tolerance)
+    h_ratios = _ratios(spec.h_tolerance)
+    corners = []
+    for r_er in er_ratios:
+        for r_h in h_ratios:
+            notches = [c.notch_at(r_er, r_h) for c in cells]
+            corners.append(Corner(spec.er * r_er, spec.h * r_h, min(notches), max(notches)))
+    low = min(c.low_hz for c in corners)
+    high = max(c.high_hz for c in corners)
+    target = spec.target_hz
+    inside = None if target is None else bool(low <= target <= high)
+    return Estimate(cells, low, high, target, inside, spec.er, spec.h, spec.er_tolerance, spec.h_tolerance,
+                    tuple(corners))
+
+
+def estimate_cell(cell: PlacedCell, er: float, h: float, bridge_length: float | None,
+                  accuracy: float = 0.01) -> CellEstimate:
+    """Lowest three cavity modes of the drawn patch, the LC resonance if it has bridges, and its notch.
+
+    A plain rectangle gets the closed form, with m counting half-waves along
+    the pair (the cell's u axis) and n across it; any other patch the
+    numerical solve.
+    """
+    if is_rectangle(cell.patch):
+        along_x = affinity.rotate(cell.patch, -cell.rotation_deg, origin=cell.centre)
+        x0, y0, x1, y1 = along_x.bounds
+        a, b = x1 - x0, y1 - y0
+        modes = tuple(Mode(f, "cavity-analytic", f"TM{m}{n}") for f, m, n in rect_modes(a, b, er, 3))
+    else:
+        modes = tuple(Mode(f, "cavity-numeric", f"mode {i + 1}")
+                      for i, f in enumerate(polygon_modes(cell.patch, er, 3, accuracy)))
+    lc = None
+    if cell.bridges:
+        lc = lc_notch(cell.patch, cell.bridges, h, er, bridge_length)
+    if lc is not None and lc < modes[0].f_hz:
+        return CellEstimate(cell.index, modes, lc, lc, "lc")
+    return CellEstimate(cell.index, modes, lc, modes[0].f_hz, "cavity")
+
+
+def is_rectangle(polygon: Polygon, grid_mm: float = GRID_MM) -> bool:
+    """True for a plain four-cornered rectangle at any angle.
+
+    Its area must equal its minimum rotated rectangle's to within what snapping
+    the corners to the engine's grid can change (perimeter x 2 grid steps).
+    """
+    plain = polygon.simplify(0)
+    if plain.interiors or len(plain.exterior.coords) != 5:
+        return False
+    return abs(plain.minimum_rotated_rectangle.area - plain.area) <= 2 * grid_mm * plain.length
+
+
+def format_table(estimate: Estimate) -> str:
+    """Terminal table: per cell its modes, LC resonance and notch, then the band and the target."""
+    rows = [("cell", "mode", "frequency", "method")]
+    notes = []
+    for cell in estimate.cells:
+        first = True
+        for mode in cell.modes:
+            rows.append((str(cell.index) if first else "", mode.label, format_hz(mode.f_hz), mode.method))
+            first = False
+        if cell.lc_f_hz is not None:
+            rows.append(("", "LC", format_hz(cell.lc_f_hz), "lumped (plate C, bridge L)"))
+            if abs(cell.lc_f_hz / cell.modes[0].f_hz - 1) < INTERACTION:
+                notes.append(f"cell {cell.index}: LC and cavity resonances are within {INTERACTION:.0%}; "
+                             "they interact and both estimates are rough")
+        rows.append(("", "notch", format_hz(cell.notch_hz), f"{cell.governs} governs"))
+    widths = [max(len(r[i]) for r in rows) for i in range(4)]
+    lines = ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    lines.append("")
+    lines.append(f"band {format_hz(estimate.low_hz)} .. {format_hz(estimate.high_hz)} over er {estimate.er:g} "
+                 f"+-{estimate.er_tolerance:.0%} and h {estimate.h:g} mm +-{estimate.h_tolerance:.0%}")
+    if estimate.target_hz is not None:
+        where = "inside" if estimate.target_in_band else "outside"
+        lines.append(f"target {format_hz(estimate.target_hz)}: {where} the band")
+    lines.extend(notes)
+    lines.append(f"caution: {CAUTION}")
+    return "\n".join(lines)
+
+
+def _ratios(tolerance: float) -> tuple[float, ...]:
+    return tuple(sorted({1.0 - tolerance, 1.0, 1.0 + tolerance}))
+
+
+def _hz(value: float) -> float:
+    return float(round(value, -3))
+
+
+def _num(value: float) -> float:
+    return float(round(value, 6))

@@ -1,0 +1,188 @@
+"""First-pass patch size for a target notch, and the two-stage correction after a field solve.
+
+Rectangles invert the cavity model's fundamental, f10 = c / (2 a sqrt(er))
+(Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch),
+for the patch's long side.  Bridged cells are sized by solving the same model
+``band.estimate_cell`` uses (lower of the LC resonance and the lowest cavity
+mode of the drawn, pocketed patch) for the patch scale with Brent's method
+(R. P. Brent, Algorithms for Minimization without Derivatives, 1973, via scipy).
+"""
+from __future__ import annotations
+
+import math
+from types import SimpleNamespace
+
+from scipy.optimize import brentq
+
+from ..cells.bridged import bridged_cell
+from ..cells.shape import rectangle
+from ..errors import EbgError, SpecError
+from ..layout import PlacedCell
+from ..spec import STYLES, FilterSpec
+from .band import CAUTION, estimate_cell
+from .cavity import C0
+
+DEFAULT_ASPECT = 0.5
+"""Default across / along ratio of a new patch: the fundamental then runs along the pair."""
+
+
+def size_for_target(target_hz: float, er: float, style: str = "straight", aspect: float = DEFAULT_ASPECT,
+                    h: float | None = None, bridge: tuple[float, float, int] | None = None,
+                    slot: float | None = None, across: float | None = None) -> dict:
+    """First-pass patch [along, across] (mm) whose estimated notch is ``target_hz``.
+
+    The patch keeps ``aspect`` = across / along, or, with ``across`` given,
+    that across size (the one the pair and the bridge keep-out constrain) and
+    only the along size is solved.  Bridged cells need ``h`` (mm) and
+    ``bridge`` = (width, length, per_side); with ``slot`` the pockets a bridge
+    longer than the slot cuts into the patch are drawn and counted, without it
+    none are.  The search keeps the pockets to at most half the patch width.
+    Returns {"style", "target_hz", "er", "patch": [along, across], "notch_hz",
+    "governs", "caution"}, plus "h_mm", "bridge" and "lc_f_hz" for bridged cells.
+    """
+    _check(target_hz=target_hz, er=er, aspect=aspect)
+    if across is not None:
+        _check(across=across)
+    if style not in STYLES:
+        raise SpecError("cut.style", style, f"must be one of {', '.join(STYLES)}")
+
+    def dims(along: float) -> tuple[float, float]:
+        return (along, across if across is not None else along * aspect)
+
+    if style != "bridged":
+        if bridge is not None:
+            raise SpecError("cut.bridge", bridge, f"only the bridged style takes bridges (style is {style!r})")
+        long_side = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
+        if across is None:
+            along = long_side if aspect <= 1 else long_side / aspect
+        elif across <= long_side * (1 + 1e-12):
+            along = long_side
+        else:
+            raise SpecError("target", target_hz, f"is above the across mode of a {across:g} mm wide patch "
+                            f"({C0 / (2 * across * 1e-3 * math.sqrt(er)) / 1e9:.4g} GHz); narrow the patch")
+        result = estimate_cell(_cell(dims(along), None), er, 1.0, None)
+        return _result(style, target_hz, er, dims(along), result)
+    if h is None or bridge is None:
+        raise SpecError("cut.bridge", bridge, "bridged sizing needs h and bridge = (width, length, per_side)")
+    _check(h=h)
+    width, length, per_side = bridge
+    _check(bridge_width=width, bridge_length=length)
+    if isinstance(per_side, bool) or not isinstance(per_side, int) or per_side < 1:
+        raise SpecError("cut.bridge.per_side", per_side, "must be a whole number >= 1")
+    slot = length if slot is None else slot
+    _check(slot=slot)
+    if length < slot:
+        raise SpecError("cut.bridge.length", length, f"must be >= the slot width ({slot:g} mm)")
+    if across is not None and 4 * (length - slot) > across:
+        raise SpecError("cut.bridge.length", length, f"its pockets would take more than half the {across:g} mm "
+                        "across size")
+    shape = SimpleNamespace(slot=slot, bridge_width=width, bridge_length=length, bridges_per_side=per_side)
+
+    def notch(along: float) -> float:
+        return estimate_cell(_cell(dims(along), shape), er, h, length).notch_hz
+
+    smallest = per_side * (width + 2 * slot) + slot
+    if across is None:
+        smallest = max(smallest, 4 * (length - slot) / aspect)
+    smallest *= 1.001
+    if notch(smallest) < target_hz:
+        raise SpecError("target", target_hz, f"is above what these bridges can reach: the smallest patch that "
+                        f"holds them with its pockets at most half its width ({smallest:.4g} mm along) "
+                        f"notches at {notch(smallest) / 1e9:.4g} GHz")
+    largest = smallest * 2
+    while notch(largest) > target_hz:
+        largest *= 2
+        if largest > 1000:
+            raise SpecError("target", target_hz, "needs a patch larger than 1 m; check the units")
+    along = brentq(lambda a: notch(a) / target_hz - 1, smallest, largest, xtol=1e-7, rtol=1e-10)
+    result = estimate_cell(_cell(dims(along), shape), er, h, length)
+    out = _result(style, target_hz, er, dims(along), result)
+    out.update({"h_mm": h, "bridge": {"width": width, "length": length, "per_side": per_side, "slot": slot},
+                "lc_f_hz": _hz(result.lc_f_hz)})
+    return out
+
+
+def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
+    """Second pass: re-size every cell after a field solve of the first pass notched at ``observed_hz``.
+
+    The usual two-stage correction: the model was off by f_obs / f_target, so
+    the design target becomes f_design = f_target * f_target / f_obs and the
+    patches are re-sized for it with the same model and bridges.  For cells of
+    different sizes each cell's own modelled notch is scaled by the same
+    factor f_target / f_obs (which gives f_design for a cell the model sized
+    for the target).  ``keep`` = "across" holds each patch's across size (set
+    by the pair and the bridge keep-out) and re-sizes the along size;
+    "aspect" scales both.  Returns {"target_hz", "observed_hz", "factor",
+    "design_hz", "cells": [{"index", "model_hz", "design_hz", "patch"}],
+    "patches", "caution"}.
+    """
+    if spec.target_hz is None:
+        raise SpecError("target", "(missing)", "refine needs the spec's target frequency")
+    _check(observed_hz=observed_hz)
+    if keep not in ("across", "aspect"):
+        raise EbgError(f"keep = {keep!r}: must be 'across' or 'aspect'")
+    factor = spec.target_hz / observed_hz
+    bridge, shape = None, None
+    if spec.style == "bridged":
+        bridge = (spec.bridge_width, spec.bridge_length, spec.bridges_per_side)
+        shape = SimpleNamespace(slot=spec.slot, bridge_width=spec.bridge_width, bridge_length=spec.bridge_length,
+                                bridges_per_side=spec.bridges_per_side)
+    cells, patches = [], []
+    for i, size in enumerate(spec.patches):
+        model = estimate_cell(_cell(size, shape), spec.er, spec.h, spec.bridge_length).notch_hz
+        sized = size_for_target(model * factor, spec.er, spec.style, size[1] / size[0], spec.h, bridge,
+                                spec.slot if bridge else None, size[1] if keep == "across" else None)
+        cells.append({"index": i, "model_hz": _hz(model), "design_hz": _hz(model * factor), "patch": sized["patch"]})
+        patches.append(sized["patch"])
+    return {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
+            "design_hz": _hz(spec.target_hz * factor), "cells": cells, "patches": patches, "caution": CAUTION}
+
+
+def _cell(size: tuple[float, float], bridged: SimpleNamespace | None) -> PlacedCell:
+    """A cell at the origin drawn by the engine's own builder, for the estimate to read."""
+    if bridged is None:
+        patch = outer = rectangle(*size)
+        bridges: tuple = ()
+    else:
+        shape = bridged_cell(bridged, size)
+        patch, bridges, outer = shape.patch, shape.bridges, shape.outer
+    return PlacedCell(index=0, centre=(0.0, 0.0), rotation_deg=0.0, size=size, patch=patch, bridges=bridges,
+                      outer=outer)
+
+
+def _result(style: str, target_hz: float, er: float, size: tuple[float, float], cell) -> dict:
+    return {"style": style, "target_hz": _hz(target_hz), "er": er, "patch": [round(size[0], 6), round(size[1], 6)],
+            "notch_hz": _hz(cell.notch_hz), "governs": cell.governs, "caution": CAUTION}
+
+
+def _check(**values: float) -> None:
+    for key, value in values.items():
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
+            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
+
+
+def _hz(value: float) -> float:
+    return float(round(value, -3))
+
+
+def format_sizing(result: dict) -> str:
+    """Terminal summary of ``size_for_target``."""
+    a, b = result["patch"]
+    lines = [f"style {result['style']}: patch {a:.4g} mm along x {b:.4g} mm across for "
+             f"{result['target_hz'] / 1e9:.4g} GHz at er {result['er']:g} ({result['governs']} governs)"]
+    if result.get("bridge"):
+        br = result["bridge"]
+        lines.append(f"bridges: {br['per_side']} per side, {br['width']:g} mm wide, {br['length']:g} mm long, "
+                     f"slot {br['slot']:g} mm; LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+    lines.append(f"caution: {result['caution']}")
+    return "\n".join(lines)
+
+
+def format_refine(result: dict) -> str:
+    """Terminal summary of ``refine``: the correction factor and the new patch sizes as a cut.patches line."""
+    lines = [f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
+             f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})"]
+    for cell in result["cells"]:
+        lines.append(f"  cell {cell['index']}: patch {cell['patch'][0]:.4g} x {cell['patch'][1]:.4g} mm")
+    lines.append("cut.patches = [" + ", ".join(f"[{a:g}, {b:g}]" for a, b in result["patches"]) + "]")
+    return "\n".join(lines)
