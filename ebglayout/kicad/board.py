@@ -1,0 +1,1043 @@
+"""Read a .kicad_pcb board without KiCad: layers, stack-up, nets, tracks, vias, zones, footprints, board edge.
+
+Speed matters (boards of 100k segments): the whole file is checked once by
+``sexpr.scan``; segments, arcs and vias are pulled with one regular-expression
+pass each straight into numpy arrays, and only the small sections that need
+structure (setup, layers, nets, zones, footprints, board-edge drawings) are
+parsed into trees.  An item the fast pattern does not recognise (an unusual
+field order, a newer token) is parsed through the tree instead, so the fast
+path never decides what is read, only how fast.
+
+Dialects: KiCad 6 (20211014), 7 (20221018), 8 (20240108), 9 (20241229) and the
+10 files seen so far (2026xxxx, net names instead of net codes).  Layers are
+matched by name, never by number (the numbers changed in 9).  Coordinates are
+KiCad's: mm, y pointing down.  The file bytes and every top-level item's byte
+span are kept, so a writer can splice new items in and leave every other byte
+as it was.
+"""
+from __future__ import annotations
+
+import math
+import re
+import warnings
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import shapely
+from shapely.geometry import LineString, MultiPolygon, Polygon
+
+from ..errors import BoardError
+from ..path import piece_points
+from ..spec import Arc
+from .sexpr import Quoted, Structure, error_at, scan, unescape
+
+VERSIONS = {20211014: "6.0", 20221018: "7.0", 20240108: "8.0", 20241229: "9.0"}
+"""Version stamps of the major releases (KiCad's own version history; 10.0 files carry 2026xxxx)."""
+OLDEST_VERSION = 20211014
+NEWEST_CHECKED = 20260206
+COPPER_TYPES = frozenset({"signal", "power", "mixed", "jumper"})
+ISLAND_MODES = {0: "always", 1: "never", 2: "area"}
+KEEPOUT_FLAGS = ("tracks", "vias", "pads", "copperpour", "footprints")
+KEEPOUT_DEFAULT_ALLOWED = {"tracks": False, "vias": False, "pads": True, "copperpour": False, "footprints": True}
+"""What KiCad 6 assumed for a keepout flag left out of a rule area (measured with 6.0.11, see the KiCad fact sheet)."""
+KNOWN_TOP = frozenset({
+    "version", "generator", "generator_version", "general", "paper", "page", "title_block", "layers", "setup",
+    "property", "net", "net_class", "footprint", "segment", "arc", "via", "zone", "group", "dimension", "target",
+    "image", "table", "generated", "embedded_fonts", "embedded_files", "text", "text_box", "teardrops", "point",
+    "barcode", "module",
+})
+
+_NUM = rb"[-+0-9.eE]+"
+_ONE = rb"(" + _NUM + rb")\s*"
+_TWO = rb"(" + _NUM + rb"\s+" + _NUM + rb")\s*"
+_NAME = rb'("(?:[^"\\]|\\.)*"|[^\s()"]+)\s*'
+_NAMES = rb'((?:(?:"(?:[^"\\]|\\.)*"|[^\s()"]+)\s*){2,})'
+_NET = rb'\(net\s+(\d+|"(?:[^"\\]|\\.)*")\s*\)'
+_LOCKED = rb"(?:\(locked(?:\s+\w+)?\s*\)\s*)?"
+_SEGMENT = re.compile(
+    rb"\(segment\s+(?:locked\s+)?\(start\s+" + _TWO + rb"\)\s*\(end\s+" + _TWO + rb"\)\s*\(width\s+" + _ONE
+    + rb"\)\s*" + _LOCKED + rb"\(layer\s+" + _NAME + rb"\)\s*" + _LOCKED + _NET)
+_ARC = re.compile(
+    rb"\(arc\s+(?:locked\s+)?\(start\s+" + _TWO + rb"\)\s*\(mid\s+" + _TWO + rb"\)\s*\(end\s+" + _TWO
+    + rb"\)\s*\(width\s+" + _ONE + rb"\)\s*" + _LOCKED + rb"\(layer\s+" + _NAME + rb"\)\s*" + _LOCKED + _NET)
+_VIA = re.compile(
+    rb"\(via\s+((?:[a-z_]+\s+)*)\(at\s+" + _TWO + rb"\)\s*\(size\s+" + _ONE + rb"\)\s*\(drill\s+" + _ONE
+    + rb"\)\s*\(layers\s+" + _NAMES + rb"\)\s*(?:\([a-z_]+(?:\s+[^\s()]+)*\s*\)\s*)*?" + _NET)
+_PAD = re.compile(
+    rb"\(pad\s+" + _NAME + rb"([a-z_]+)\s+([a-z_]+)\s+(?:locked\s+)?\(at\s+" + _TWO + rb"(?:(" + _NUM
+    + rb")\s*)?\)\s*" + _LOCKED + rb"\(size\s+" + _TWO + rb"\)")
+_W1 = rb"([^\s()]+)"
+_W2 = rb"([^\s()]+ [^\s()]+)"
+_SEGMENT_WRITER = re.compile(rb"\(segment \(start " + _W2 + rb"\) \(end " + _W2 + rb"\) \(width " + _W1
+                             + rb"\) \(layer ([^()]*)\) \(net ([^()]*)\)")
+_ARC_WRITER = re.compile(rb"\(arc \(start " + _W2 + rb"\) \(mid " + _W2 + rb"\) \(end " + _W2 + rb"\) \(width "
+                         + _W1 + rb"\) \(layer ([^()]*)\) \(net ([^()]*)\)")
+_VIA_WRITER = re.compile(rb"\(via ((?:[a-z]+ )*)\(at " + _W2 + rb"\) \(size " + _W1 + rb"\) \(drill " + _W1
+                         + rb"\) \(layers ([^()]*)\) (?:\([a-z_]+\) )*\(net ([^()]*)\)")
+"""The one-line forms KiCad 6/7 write, tried first because they match fastest.  Number fields hold exactly
+one or two tokens, as in the general patterns; names are looked up afterwards like every other row."""
+_STRING_TOKEN = re.compile(rb'"(?:[^"\\]|\\.)*"|[^\s"]+')
+_NET_NAME = re.compile(rb'\(net\s+"((?:[^"\\]|\\.)*)"\s*\)')
+_XY = re.compile(rb"\(xy\s+([^()]*)\)")
+
+
+@dataclass(frozen=True)
+class Dielectric:
+    """One dielectric of the stack-up, between copper layers ``above`` and ``below``.
+
+    With sub-layers, ``thickness`` is their sum and ``epsilon_r`` the series value
+    h / sum(h_i / er_i) (stacked parallel-plate capacitors, basic electrostatics).
+    """
+
+    name: str
+    kind: str
+    thickness: float | None
+    epsilon_r: float | None
+    loss_tangent: float | None
+    material: str
+    above: str
+    below: str
+    sublayers: tuple[tuple[float | None, float | None], ...] = ()
+
+
+@dataclass(frozen=True)
+class Stackup:
+    """Copper layers (name, thickness) top to bottom and the dielectrics between them."""
+
+    copper: tuple[tuple[str, float | None], ...]
+    dielectrics: tuple[Dielectric, ...]
+
+    def between(self, a: str, b: str) -> tuple[float | None, float | None]:
+        """Distance (mm) and series permittivity of the dielectric between copper layers a and b.
+
+        The distance includes the copper of layers strictly between them; the
+        permittivity counts dielectrics only (series capacitors, as above).
+        None where the stack-up leaves a value out.
+        """
+        names = [n for n, _ in self.copper]
+        if a not in names or b not in names or a == b:
+            return None, None
+        i, j = sorted((names.index(a), names.index(b)))
+        between = set(names[i:j + 1])
+        layers = [d for d in self.dielectrics if d.above in between and d.below in between]
+        if not layers or any(d.thickness is None for d in layers):
+            return None, None
+        h = sum(d.thickness for d in layers)
+        inner = [t for n, t in self.copper[i + 1:j]]
+        if any(t is None for t in inner):
+            return None, None
+        er = None if any(d.epsilon_r is None for d in layers) else h / sum(d.thickness / d.epsilon_r for d in layers)
+        return h + sum(inner), er
+
+
+@dataclass(frozen=True)
+class Segments:
+    """Straight tracks: (n, 2) start and end, width, copper-layer index, net index, byte span."""
+
+    start: np.ndarray
+    end: np.ndarray
+    width: np.ndarray
+    layer: np.ndarray
+    net: np.ndarray
+    span: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.width)
+
+
+@dataclass(frozen=True)
+class Arcs:
+    """Arc tracks through three points: (n, 2) start, mid and end, width, layer index, net index, byte span."""
+
+    start: np.ndarray
+    mid: np.ndarray
+    end: np.ndarray
+    width: np.ndarray
+    layer: np.ndarray
+    net: np.ndarray
+    span: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.width)
+
+
+@dataclass(frozen=True)
+class Vias:
+    """Vias: (n, 2) position, pad size, drill, (n, 2) top and bottom copper-layer index, kind, net, span."""
+
+    at: np.ndarray
+    size: np.ndarray
+    drill: np.ndarray
+    layers: np.ndarray
+    kind: tuple[str, ...]
+    net: np.ndarray
+    span: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.size)
+
+
+@dataclass(frozen=True)
+class PadArray:
+    """Every pad of every footprint, found without parsing footprints: (n, 2) absolute position,
+    (n, 2) size, rotation as written, owning footprint (index into ``Board.footprint_spans``), byte span."""
+
+    at: np.ndarray
+    size: np.ndarray
+    rotation: np.ndarray
+    footprint: np.ndarray
+    span: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.rotation)
+
+
+@dataclass(frozen=True)
+class Zone:
+    """A copper zone or a rule area (``keepout`` set).  Outline coordinates are absolute, also inside footprints.
+
+    ``outline`` is the first polygon with every further ``(polygon ...)`` entry as a
+    hole, which is how KiCad reads a zone outline back.  ``fill_spans`` are the
+    byte spans of its ``filled_polygon`` items (read them with ``Board.zone_fill``).
+    ``keepout`` maps tracks/vias/pads/copperpour/footprints to True when allowed.
+    """
+
+    layers: tuple[str, ...]
+    net: int
+    net_name: str
+    name: str
+    rings: tuple[np.ndarray, ...]
+    outline: Polygon | MultiPolygon
+    clearance: float | None
+    min_thickness: float | None
+    priority: int
+    island_removal: str
+    island_area_min: float | None
+    keepout: dict[str, bool] | None
+    filled: bool
+    fill_spans: tuple[tuple[int, int], ...]
+    footprint: str | None
+    span: tuple[int, int]
+
+    @property
+    def is_rule_area(self) -> bool:
+        return self.keepout is not None
+
+
+@dataclass(frozen=True)
+class Pad:
+    """A footprint pad; ``at`` is the absolute board position, ``copper`` the copper layers it is on."""
+
+    number: str
+    kind: str
+    shape: str
+    at: tuple[float, float]
+    rotation: float
+    size: tuple[float, float]
+    drill: float | None
+    layers: tuple[str, ...]
+    copper: tuple[str, ...]
+    net: int
+    net_name: str
+
+
+@dataclass(frozen=True)
+class Footprint:
+    reference: str
+    value: str
+    lib_id: str
+    at: tuple[float, float]
+    rotation: float
+    layer: str
+    pads: tuple[Pad, ...]
+    span: tuple[int, int]
+
+    def to_board(self, x: float, y: float) -> tuple[float, float]:
+        """Footprint-local point to board coordinates: (X + x cos t + y sin t, Y - x sin t + y cos t), y down."""
+        return _to_board(self.at, self.rotation, x, y)
+
+
+def _to_board(at: tuple[float, float], rotation: float, x: float, y: float) -> tuple[float, float]:
+    t = math.radians(rotation)
+    c, s = math.cos(t), math.sin(t)
+    return (at[0] + x * c + y * s, at[1] - x * s + y * c)
+
+
+class Board:
+    """A parsed board.  Net index 0 is the unconnected net ""; layer indices point into ``copper_layers``.
+
+    Footprints are parsed on first use (``footprints``, ``footprint(i)``); their
+    pads' positions are available earlier and cheaper as ``pads``.
+    """
+
+    def __init__(self, reader: "_Reader", segments: Segments, arcs: Arcs, vias: Vias, zones: tuple[Zone, ...],
+                 outline: Polygon | MultiPolygon | None):
+        s = reader.s
+        self.name = s.name
+        self.data = s.data
+        self.version = reader.version
+        self.generator = reader.generator
+        self.copper_layers: tuple[str, ...] = reader.copper
+        self.layer_names: dict[str, str] = reader.layer_names
+        self.stackup: Stackup | None = reader.stackup
+        self.nets: tuple[str, ...] = tuple(reader.nets)
+        self.segments, self.arcs, self.vias, self.zones, self.outline = segments, arcs, vias, zones, outline
+        self.warnings: list[str] = reader.warnings
+        self.items: np.ndarray = s.items
+        self.root: tuple[int, int] = s.root
+        self.footprint_spans: np.ndarray = s.spans_of("footprint")
+        self._reader = reader
+        self._net_index = {n: i for i, n in enumerate(self.nets)}
+        self._footprints: dict[int, Footprint] = {}
+
+    def __repr__(self) -> str:
+        return (f"<Board {self.name} v{self.version}: {len(self.copper_layers)} copper layers, {len(self.nets)} nets, "
+                f"{len(self.segments)} segments, {len(self.arcs)} arcs, {len(self.vias)} vias, "
+                f"{len(self.zones)} zones, "
+                f"{len(self.footprint_spans)} footprints>")
+
+    @cached_property
+    def text(self) -> str:
+        return self.data.decode("utf-8")
+
+    @cached_property
+    def heads(self) -> tuple[str, ...]:
+        """Head symbol of each top-level item, parallel to ``items``."""
+        names = self._reader.head_names
+        return tuple(names[h] for h in self._reader.s.heads.tolist())
+
+    def net_index(self, name: str) -> int | None:
+        return self._net_index.get(name)
+
+    def layer_index(self, name: str) -> int | None:
+        return self.copper_layers.index(name) if name in self.copper_layers else None
+
+    def footprint(self, index: int) -> Footprint:
+        """Footprint ``index`` (file order), parsed on first use."""
+        if index not in self._footprints:
+            a, b = (int(v) for v in self.footprint_spans[index])
+            self._footprints[index] = self._reader.footprint(a, b)
+        return self._footprints[index]
+
+    @cached_property
+    def footprints(self) -> tuple[Footprint, ...]:
+        return tuple(self.footprint(i) for i in range(len(self.footprint_spans)))
+
+    @cached_property
+    def pads(self) -> PadArray:
+        return self._reader.pads(self.footprint_spans)
+
+    def spans(self, head: str) -> np.ndarray:
+        """Byte spans (n, 2) of the top-level items with this head ("footprint", "zone", ...), in file order."""
+        return self._reader.s.spans_of(head)
+
+    def splice(self, start: int, end: int, new: bytes | str) -> bytes:
+        """The file bytes with [start, end) replaced by ``new``; everything else byte-identical."""
+        new = new.encode("utf-8") if isinstance(new, str) else new
+        return self.data[:start] + new + self.data[end:]
+
+    @property
+    def insert_offset(self) -> int:
+        """Byte offset of the root's closing parenthesis: new top-level items go here."""
+        return self.root[1] - 1
+
+    def zone_fill(self, zone: Zone) -> MultiPolygon:
+        """The zone's filled copper as saved in the file (empty when unfilled)."""
+        polys = []
+        for start, end in zone.fill_spans:
+            found = _XY.findall(self.data, start, end)
+            nums = np.array(b" ".join(found).split(), dtype="S32").astype(np.float64).reshape(-1, 2)
+            if len(nums) >= 3:
+                polys.append(shapely.make_valid(Polygon(nums)))
+        geom = shapely.union_all(polys) if polys else MultiPolygon()
+        parts = [g for g in getattr(geom, "geoms", [geom]) if isinstance(g, Polygon) and not g.is_empty]
+        return MultiPolygon(parts)
+
+
+def read_board(path: str | Path) -> Board:
+    """Read a .kicad_pcb file; raise BoardError (file, line, column) when it cannot be read."""
+    path = Path(path)
+    try:
+        data = path.read_bytes()
+    except OSError as err:
+        raise BoardError(f"{path}: cannot be read ({err.strerror or err})") from None
+    return parse_board(data, path.name)
+
+
+def parse_board(text: str | bytes, name: str = "<board>") -> Board:
+    """Parse board text (str or the file's bytes)."""
+    data = text.encode("utf-8") if isinstance(text, str) else bytes(text)
+    s = scan(data, name)
+    if s.root_head != "kicad_pcb":
+        raise error_at(name, data, s.root[0], f"expected a (kicad_pcb ...) board, found ({s.root_head} ...)")
+    return _Reader(s).board()
+
+
+class _Reader:
+    """Turns a scanned board into a Board; collects warnings as it goes and parses footprints on demand."""
+
+    def __init__(self, s: Structure):
+        self.s = s
+        self.data = s.data
+        self.warnings: list[str] = []
+        self.head_names = {h: h.decode("utf-8", "replace") for h in np.unique(s.heads).tolist()}
+
+    def fail(self, offset: int, what: str) -> BoardError:
+        return self.s.error(offset, what)
+
+    def tree(self, kind: str) -> list[tuple[list, int]]:
+        return [(self.s.parse(int(a), int(b)), int(a)) for a, b in self.s.spans_of(kind)]
+
+    def board(self) -> Board:
+        self.version, self.generator = self._version()
+        self.copper, self.layer_names = self._layers()
+        self.nets, self.net_codes = self._nets()
+        self.net_lookup = {name: i for i, name in enumerate(self.nets)}
+        self.stackup = self._stackup()
+        segments, arcs, vias = self._segments(), self._arcs(), self._vias()
+        zones = tuple(self._zone(start, None) for start, _ in self.s.spans_of("zone").tolist())
+        zones += self._footprint_zones()
+        outline = self._outline()
+        names = set(self.head_names.values())
+        unknown = sorted(names - KNOWN_TOP - {h for h in names if h.startswith("gr_")})
+        if unknown:
+            self.warnings.append(f"ignored top-level items this reader does not know: {', '.join(unknown)}")
+        return Board(self, segments, arcs, vias, zones, outline)
+
+    # ---- header, layers, nets, stack-up ----
+
+    def _version(self) -> tuple[int, str]:
+        spans = self.s.spans_of("version")
+        if not len(spans):
+            raise self.fail(self.s.root[0], "board has no (version ...) stamp")
+        node = self.s.parse(*map(int, spans[0]))
+        try:
+            version = int(node[1])
+        except (IndexError, ValueError):
+            raise self.fail(int(spans[0][0]), "bad (version ...) stamp: expected a date number like 20211014") from None
+        if version < OLDEST_VERSION:
+            raise self.fail(int(spans[0][0]), f"version {version} is older than KiCad 6.0 ({OLDEST_VERSION}); "
+                                              "open and save the board in KiCad 6 or newer first")
+        if version > NEWEST_CHECKED:
+            self.warnings.append(f"version {version} is newer than the newest this reader was checked with "
+                                 f"({NEWEST_CHECKED}); unknown tokens are ignored")
+        generator = ""
+        gen = self.s.spans_of("generator")
+        if len(gen):
+            g = self.s.parse(*map(int, gen[0]))
+            generator = str(g[1]) if len(g) > 1 else ""
+        return version, generator
+
+    def _layers(self) -> tuple[tuple[str, ...], dict[str, str]]:
+        trees = self.tree("layers")
+        if not trees:
+            raise self.fail(self.s.root[0], "board has no (layers ...) table")
+        node, start = trees[0]
+        copper, names = [], {}
+        for entry in node[1:]:
+            if not isinstance(entry, list) or len(entry) < 3:
+                raise self.fail(start, f"bad entry in the layer table: {_show(entry)}")
+            name, kind = str(entry[1]), str(entry[2])
+            names[name] = str(entry[3]) if len(entry) > 3 else name
+            if kind in COPPER_TYPES and name.endswith(".Cu"):
+                copper.append(name)
+        if not copper:
+            raise self.fail(start, "the layer table lists no copper layer")
+        return tuple(sorted(copper, key=_copper_order)), names
+
+    def _nets(self) -> tuple[list[str], dict[int, int]]:
+        """Net table: declared (code, name) pairs (6-9), then names used by reference (10)."""
+        nets, codes, codes_by_name = [""], {0: 0}, {"": 0}
+        for node, start in self.tree("net"):
+            if len(node) < 3:
+                raise self.fail(start, f"bad net declaration {_show(node)}: expected (net CODE \"NAME\")")
+            try:
+                code = int(node[1])
+            except ValueError:
+                raise self.fail(start, f"bad net code {node[1]!r}: expected a whole number") from None
+            name = str(node[2])
+            if code == 0:
+                continue
+            if name not in codes_by_name:
+                codes_by_name[name] = len(nets)
+                nets.append(name)
+            codes[code] = codes_by_name[name]
+        known = set(nets)
+        named = _NET_NAME.findall(self.data) if self.version > max(VERSIONS) or len(nets) == 1 else []
+        for raw in dict.fromkeys(named):
+            name = unescape(raw.decode("utf-8"))
+            if name not in known:
+                known.add(name)
+                nets.append(name)
+        return nets, codes
+
+    def net_of(self, token, offset: int) -> int:
+        """Net index of a net reference: a code (6-9) or a quoted name (10)."""
+        if isinstance(token, Quoted) or token[:1] == '"':
+            name = str(token) if isinstance(token, Quoted) else unescape(token[1:-1])
+            if name not in self.net_lookup:
+                raise self.fail(offset, f"net {name!r} is not in the board's net list")
+            return self.net_lookup[name]
+        try:
+            return self.net_codes[int(token)]
+        except (ValueError, KeyError):
+            raise self.fail(offset, f"net {token} is not declared in the board's net list") from None
+
+    def _stackup(self) -> Stackup | None:
+        setup = self.tree("setup")
+        stack = _child(setup[0][0], "stackup") if setup else None
+        if stack is None:
+            self.warnings.append("board has no stack-up (setup > stackup): give stackup.er and stackup.h yourself")
+            return None
+        copper: list[tuple[str, float | None]] = []
+        pending: list[tuple] = []
+        dielectrics: list[Dielectric] = []
+        for layer in _children(stack, "layer"):
+            name = str(layer[1])
+            kind = str(_atom(layer, "type", default=""))
+            if kind == "copper" or name in self.copper:
+                copper.append((name, _num(layer, "thickness")))
+                dielectrics.extend(Dielectric(*d[:7], name, d[7]) for d in pending)
+                pending = []
+            elif kind in ("core", "prepreg") or name.startswith("dielectric"):
+                groups, current = [], []
+                for item in layer[2:]:
+                    if item == "addsublayer":
+                        groups.append(current)
+                        current = []
+                    elif isinstance(item, list):
+                        current.append(item)
+                groups.append(current)
+                parts = [(_num(["x", *g], "thickness"), _num(["x", *g], "epsilon_r"), _num(["x", *g], "loss_tangent"),
+                          str(_atom(["x", *g], "material", default=""))) for g in groups]
+                h = None if any(p[0] is None for p in parts) else sum(p[0] for p in parts)
+                er = h / sum(p[0] / p[1] for p in parts) if h and all(p[1] for p in parts) else None
+                if er is None:
+                    self.warnings.append(f"stack-up layer {name!r} has no epsilon_r or thickness")
+                pending.append((name, kind, h, er, parts[0][2], parts[0][3], copper[-1][0] if copper else "",
+                                tuple((p[0], p[1]) for p in parts) if len(parts) > 1 else ()))
+        if [n for n, _ in copper] != list(self.copper):
+            self.warnings.append("stack-up copper layers differ from the layer table; stack-up ignored")
+            return None
+        return Stackup(tuple(copper), tuple(dielectrics))
+
+    # ---- tracks and vias: one regular-expression pass each, straight into numpy ----
+
+    def _fast(self, spans: np.ndarray, patterns: tuple[re.Pattern, ...], tree_row) -> list[tuple]:
+        """One row of field texts per item; items the patterns miss are read from their tree."""
+        if not len(spans):
+            return []
+        starts = spans[:, 0]
+        first, last = int(starts[0]), int(spans[-1, 1])
+        pattern = patterns[-1]
+        head = pattern.pattern[:pattern.pattern.index(rb"\s")].replace(b"\\(", b"(") + b" "
+        follows = np.frombuffer(self.data, dtype=np.uint8)[starts + len(head) - 1]
+        if (follows == 32).all() and self.data.count(head) == len(starts):
+            # Each item holds one occurrence of "(head " and there is no other, so when a pattern
+            # matches as often as there are items, the matches are the items, in file order.
+            for candidate in patterns:
+                rows = candidate.findall(self.data, first, last)
+                if len(rows) == len(starts):
+                    return rows
+        matches = list(pattern.finditer(self.data, first, last))
+        rows = [m.groups() for m in matches]
+        found = [m.start() for m in matches]
+        if len(found) == len(starts) and np.array_equal(np.asarray(found, dtype=np.int64), starts):
+            return rows
+        good = dict(zip(found, rows))
+        return [good[a] if a in good else tree_row(self.s.parse(a, b), a) for a, b in spans.tolist()]
+
+    def _numbers(self, rows: list[tuple], spans: np.ndarray, fields: tuple[int, ...], counts: tuple[int, ...],
+                 tree_row) -> np.ndarray:
+        """Float columns from the given fields (field k holds counts[k] numbers); bad rows re-read from their tree.
+
+        The patterns already fix how many tokens each field holds, so one join and
+        one conversion per field is exact; a token that is not a number sends the
+        rows through the tree, which names the item's line and column.
+        """
+        width = sum(counts)
+        if not rows:
+            return np.zeros((0, width))
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                columns = [np.fromstring(b" ".join([r[f] for r in rows]), sep=" ") for f in fields]
+            if all(len(c) == n * len(rows) for c, n in zip(columns, counts)):
+                out = np.hstack([c.reshape(-1, n) for c, n in zip(columns, counts)])
+                if np.isfinite(out).all():
+                    return out
+        except ValueError:
+            pass
+        out = np.empty((len(rows), width))
+        for i, row in enumerate(rows):
+            values = _row_numbers(row, fields, counts)
+            if values is None:
+                a, b = (int(v) for v in spans[i])
+                values = _row_numbers(tree_row(self.s.parse(a, b), a), fields, counts)
+                if values is None:
+                    raise self.fail(a, f"{self.heads_at(a)} item with a field that is not a number")
+            out[i] = values
+        return out
+
+    def heads_at(self, start: int) -> str:
+        m = re.compile(rb"\(\s*([^\s()\"]+)").match(self.data, start)
+        return m.group(1).decode("utf-8", "replace") if m else "?"
+
+    def _layer_column(self, values: list[bytes], spans: np.ndarray, what: str) -> np.ndarray:
+        lut = {}
+        for v in set(values):
+            name = _text(v.strip())
+            if name not in self.copper:
+                bad = int(spans[values.index(v), 0])
+                raise self.fail(bad, f"{what} on layer {name!r}, which is not a copper layer of this board")
+            lut[v] = self.copper.index(name)
+        return np.array([lut[v] for v in values], dtype=np.int16)
+
+    def _net_column(self, values: list[bytes], spans: np.ndarray) -> np.ndarray:
+        lut = {v: self.net_of(v.decode("utf-8"), int(spans[values.index(v), 0])) for v in set(values)}
+        return np.array([lut[v] for v in values], dtype=np.int32)
+
+    def _segments(self) -> Segments:
+        spans = self.s.spans_of("segment")
+        rows = self._fast(spans, (_SEGMENT_WRITER, _SEGMENT), self._segment_tree)
+        nums = self._numbers(rows, spans, (0, 1, 2), (2, 2, 1), self._segment_tree)
+        return Segments(nums[:, 0:2], nums[:, 2:4], nums[:, 4],
+                        self._layer_column([r[3] for r in rows], spans, "segment"),
+                        self._net_column([r[4] for r in rows], spans), spans)
+
+    def _arcs(self) -> Arcs:
+        spans = self.s.spans_of("arc")
+        rows = self._fast(spans, (_ARC_WRITER, _ARC), self._arc_tree)
+        nums = self._numbers(rows, spans, (0, 1, 2, 3), (2, 2, 2, 1), self._arc_tree)
+        return Arcs(nums[:, 0:2], nums[:, 2:4], nums[:, 4:6], nums[:, 6],
+                    self._layer_column([r[4] for r in rows], spans, "arc"),
+                    self._net_column([r[5] for r in rows], spans), spans)
+
+    def _vias(self) -> Vias:
+        spans = self.s.spans_of("via")
+        rows = self._fast(spans, (_VIA_WRITER, _VIA), self._via_tree)
+        nums = self._numbers(rows, spans, (1, 2, 3), (2, 1, 1), self._via_tree)
+        pairs, cache = [], {}
+        for i, r in enumerate(rows):
+            pair = cache.get(r[4])
+            if pair is None:
+                names = _STRING_TOKEN.findall(r[4])
+                if len(names) < 2:
+                    raise self.fail(int(spans[i, 0]), "via without two layers in (layers ...)")
+                pair = cache[r[4]] = (names[0], names[-1])
+            pairs.append(pair)
+        tops = self._layer_column([p[0] for p in pairs], spans, "via")
+        bottoms = self._layer_column([p[1] for p in pairs], spans, "via")
+        layers = np.sort(np.column_stack([tops, bottoms]), axis=1) if rows else np.zeros((0, 2), np.int16)
+        return Vias(nums[:, 0:2], nums[:, 2], nums[:, 3], layers, tuple(_via_kind(r[0]) for r in rows),
+                    self._net_column([r[5] for r in rows], spans), spans)
+
+    def _field(self, node: list, head: str, count: int, start: int, numeric: bool = True) -> bytes:
+        child = _child(node, head)
+        if child is None or len(child) < count + 1 or (numeric and len(child) != count + 1):
+            raise self.fail(start, f"{node[0]} item: expected ({head} followed by {count} value(s))")
+        values = child[1:count + 1]
+        if numeric and not all(_is_number(v) for v in values):
+            shown = " ".join(map(str, values))
+            raise self.fail(start, f"{node[0]} item: ({head} {shown}) holds something that is not a number")
+        return b" ".join(_as_token(v) for v in values)
+
+    def _segment_tree(self, node: list, start: int) -> tuple:
+        f = self._field
+        return (f(node, "start", 2, start), f(node, "end", 2, start), f(node, "width", 1, start),
+                f(node, "layer", 1, start, False), f(node, "net", 1, start, False))
+
+    def _arc_tree(self, node: list, start: int) -> tuple:
+        f = self._field
+        return (f(node, "start", 2, start), f(node, "mid", 2, start), f(node, "end", 2, start),
+                f(node, "width", 1, start), f(node, "layer", 1, start, False), f(node, "net", 1, start, False))
+
+    def _via_tree(self, node: list, start: int) -> tuple:
+        f = self._field
+        words = b" ".join(a.encode() for a in node[1:] if isinstance(a, str) and not isinstance(a, Quoted))
+        return (words, f(node, "at", 2, start), f(node, "size", 1, start), f(node, "drill", 1, start),
+                f(node, "layers", 2, start, False), f(node, "net", 1, start, False))
+
+    # ---- zones: small trees, fills skipped ----
+
+    def _zone(self, start: int, footprint: str | None) -> Zone:
+        end = self.s.end_of(start)
+        node = self.s.parse(start, end, skip=("filled_polygon", "fill_segments"))
+        name = str(_atom(node, "name", default=""))
+        net_field = _child(node, "net")
+        net = self.net_of(net_field[1], start) if net_field is not None and len(net_field) > 1 else 0
+        rings = []
+        for poly in _children(node, "polygon"):
+            ring = _ring(_child(poly, "pts"))
+            if len(ring) < 3:
+                raise self.fail(start, f"zone {name!r} has a polygon with fewer than 3 points")
+            rings.append(ring)
+        if not rings:
+            raise self.fail(start, f"zone {name!r} without an outline (polygon (pts ...))")
+        outline = Polygon(rings[0], rings[1:])
+        if not outline.is_valid:
+            outline = shapely.make_valid(outline)
+            self.warnings.append(f"zone {name!r}: outline crosses itself; repaired")
+        fill = _child(node, "fill")
+        mode = _child(fill, "island_removal_mode") or _child(node, "island_removal_mode")
+        area = _child(fill, "island_area_min") or _child(node, "island_area_min")
+        connect = _child(node, "connect_pads")
+        keep = _child(node, "keepout")
+        keepout = None
+        if keep is not None:
+            keepout = dict(KEEPOUT_DEFAULT_ALLOWED)
+            for flag in keep[1:]:
+                if isinstance(flag, list) and len(flag) > 1 and flag[0] in KEEPOUT_FLAGS:
+                    keepout[flag[0]] = flag[1] == "allowed"
+        fill_spans = tuple(self._subspans(start, end, b"filled_polygon"))
+        return Zone(
+            layers=self._layer_list(node), net=net, net_name=str(_atom(node, "net_name", default=self.nets[net])),
+            name=name, rings=tuple(rings), outline=outline,
+            clearance=_num(connect, "clearance") if connect is not None else None,
+            min_thickness=_num(node, "min_thickness"), priority=int(_num(node, "priority") or 0),
+            island_removal=ISLAND_MODES.get(int(float(mode[1])), "always") if mode is not None else "always",
+            island_area_min=float(area[1]) if area is not None else None, keepout=keepout,
+            filled=(fill is not None and len(fill) > 1 and fill[1] == "yes") or bool(fill_spans),
+            fill_spans=fill_spans, footprint=footprint, span=(start, end),
+        )
+
+    def _subspans(self, start: int, end: int, head: bytes):
+        pattern = re.compile(rb"\(\s*" + head + rb"[\s()]")
+        pos = start + 1
+        while (m := pattern.search(self.data, pos, end)) is not None:
+            if not self.s.opens_at(m.start()):
+                pos = m.end()
+                continue
+            stop = self.s.end_of(m.start())
+            yield (m.start(), stop)
+            pos = stop
+
+    def _layer_list(self, node: list) -> tuple[str, ...]:
+        single = _child(node, "layer")
+        multi = _child(node, "layers")
+        names = [str(single[1])] if single is not None and len(single) > 1 else \
+            [str(a) for a in multi[1:] if not isinstance(a, list)] if multi is not None else []
+        out: list[str] = []
+        for name in names:
+            out.extend(n for n in expand_layers(name, self.copper, self.layer_names) if n not in out)
+        return tuple(out)
+
+    def _footprint_zones(self) -> tuple[Zone, ...]:
+        rows = np.flatnonzero(self.s.heads == b"footprint")
+        if not len(rows):
+            return ()
+        spans, heads, owner = self.s.children(rows)
+        zones = []
+        for (a, _), parent in zip(spans[heads == b"zone"].tolist(), owner[heads == b"zone"].tolist()):
+            zones.append(self._zone(a, self._reference(*map(int, self.s.items[parent]))))
+        return tuple(zones)
+
+    def _reference(self, start: int, end: int) -> str:
+        m = re.compile(rb'\(fp_text\s+reference\s+("(?:[^"\\]|\\.)*"|[^\s()"]+)|'
+                       rb'\(property\s+"Reference"\s+("(?:[^"\\]|\\.)*")').search(self.data, start, end)
+        if m is None:
+            return ""
+        return _text(m.group(1) or m.group(2))
+
+    # ---- footprints, on demand ----
+
+    def footprint(self, start: int, end: int) -> Footprint:
+        node = self.s.parse(start, end, skip=("filled_polygon", "fill_segments", "model", "zone"))
+        at = _child(node, "at")
+        if at is None or len(at) < 3 or not _is_number(at[1]) or not _is_number(at[2]):
+            raise self.fail(start, "footprint without (at X Y)")
+        rot = float(at[3]) if len(at) > 3 and _is_number(at[3]) else 0.0
+        reference = value = ""
+        for text in _children(node, "fp_text"):
+            if len(text) > 2 and text[1] in ("reference", "value"):
+                reference, value = (str(text[2]), value) if text[1] == "reference" else (reference, str(text[2]))
+        for prop in _children(node, "property"):
+            if len(prop) > 2 and prop[1] in ("Reference", "Value"):
+                reference, value = (str(prop[2]), value) if prop[1] == "Reference" else (reference, str(prop[2]))
+        fp = Footprint(reference, value, str(node[1]) if len(node) > 1 else "", (float(at[1]), float(at[2])), rot,
+                       str(_atom(node, "layer", default="F.Cu")), (), (start, end))
+        pads = tuple(self._pad(p, fp, start) for p in _children(node, "pad"))
+        return Footprint(fp.reference, fp.value, fp.lib_id, fp.at, rot, fp.layer, pads, (start, end))
+
+    def _pad(self, node: list, fp: Footprint, start: int) -> Pad:
+        if len(node) < 4:
+            raise self.fail(start, f"footprint {fp.reference}: pad without number, kind and shape")
+        at, size = _child(node, "at"), _child(node, "size")
+        if at is None or size is None or len(at) < 3 or len(size) < 3:
+            raise self.fail(start, f"footprint {fp.reference}: pad {node[1]} without (at ...) or (size ...)")
+        drill_node = _child(node, "drill")
+        drills = [float(v) for v in drill_node[1:] if _is_number(v)] if drill_node is not None else []
+        net_field = _child(node, "net")
+        net = self.net_of(net_field[1], start) if net_field is not None and len(net_field) > 1 else 0
+        layers = _child(node, "layers")
+        names = tuple(str(v) for v in layers[1:] if not isinstance(v, list)) if layers is not None else ()
+        copper: list[str] = []
+        for name in names:
+            copper.extend(n for n in expand_layers(name, self.copper, self.layer_names) if n not in copper)
+        return Pad(
+            number=str(node[1]), kind=str(node[2]), shape=str(node[3]),
+            at=fp.to_board(float(at[1]), float(at[2])),
+            rotation=float(at[3]) if len(at) > 3 and _is_number(at[3]) else 0.0,
+            size=(float(size[1]), float(size[2])), drill=min(drills) if drills else None, layers=names,
+            copper=tuple(copper), net=net, net_name=self.nets[net],
+        )
+
+    def pads(self, fp_spans: np.ndarray) -> PadArray:
+        """Positions and sizes of all pads by one pattern pass; footprint placement from each (at ...)."""
+        rows = np.flatnonzero(self.s.heads == b"footprint")
+        if not len(rows):
+            z = np.zeros((0, 2))
+            return PadArray(z, z, np.zeros(0), np.zeros(0, np.int32), np.zeros((0, 2), np.int64))
+        spans, heads, owner = self.s.children(rows)
+        fp_of_row = {int(r): i for i, r in enumerate(rows.tolist())}
+        places = np.full((len(rows), 3), np.nan)
+        for (a, b), parent in zip(spans[heads == b"at"].tolist(), owner[heads == b"at"].tolist()):
+            try:
+                values = [float(v) for v in self.data[a + 3:b - 1].split()[:3]]
+            except ValueError:
+                raise self.fail(a, "footprint (at ...) should hold numbers") from None
+            if len(values) < 2:
+                raise self.fail(a, "footprint (at X Y) needs two numbers")
+            places[fp_of_row[parent]] = values + [0.0] * (3 - len(values))
+        if np.isnan(places[:, :2]).any():
+            missing = int(rows[int(np.argmax(np.isnan(places[:, 0])))])
+            raise self.fail(int(self.s.items[missing, 0]), "footprint without (at X Y)")
+        pad_spans = spans[heads == b"pad"]
+        pad_fp = np.array([fp_of_row[int(p)] for p in owner[heads == b"pad"].tolist()], dtype=np.int32)
+        rows_text = self._fast(pad_spans, (_PAD,), self._pad_tree)
+        nums = self._numbers(rows_text, pad_spans, (3, 5), (2, 2), self._pad_tree)
+        rotation = np.array([float(r[4]) if r[4] else 0.0 for r in rows_text])
+        t = np.radians(places[pad_fp, 2])
+        x, y = nums[:, 0], nums[:, 1]
+        at = np.column_stack([places[pad_fp, 0] + x * np.cos(t) + y * np.sin(t),
+                              places[pad_fp, 1] - x * np.sin(t) + y * np.cos(t)])
+        return PadArray(at, nums[:, 2:4], rotation, pad_fp, pad_spans)
+
+    def _pad_tree(self, node: list, start: int) -> tuple:
+        at = _child(node, "at")
+        if len(node) < 4 or at is None or len(at) < 3 or not all(_is_number(v) for v in at[1:]):
+            raise self.fail(start, "pad without number, kind, shape and (at X Y [ANGLE])")
+        return (_as_token(node[1]), str(node[2]).encode(), str(node[3]).encode(),
+                f"{at[1]} {at[2]}".encode(), str(at[3]).encode() if len(at) > 3 else None,
+                self._field(node, "size", 2, start))
+
+    # ---- board edge ----
+
+    def _outline(self) -> Polygon | MultiPolygon | None:
+        open_lines: list[np.ndarray] = []
+        rings: list[np.ndarray] = []
+        graphic = np.char.startswith(self.s.heads, b"gr_") if len(self.s.heads) else np.zeros(0, bool)
+        for a, b in self.s.items[graphic].tolist():
+            if b"Edge.Cuts" in self.data[a:b]:
+                node = self.s.parse(a, b)
+                if _on_edge(node):
+                    self._edge_item(node, None, a, open_lines, rings)
+        self._footprint_edges(open_lines, rings)
+        if not open_lines and not rings:
+            self.warnings.append("no board outline on Edge.Cuts")
+            return None
+        if open_lines:
+            merged = shapely.line_merge(shapely.set_precision(
+                shapely.MultiLineString([LineString(p) for p in open_lines]), 1e-6))
+            for part in getattr(merged, "geoms", [merged]):
+                coords = np.asarray(part.coords)
+                if len(coords) >= 4 and np.allclose(coords[0], coords[-1], atol=1e-6):
+                    rings.append(coords)
+                else:
+                    self.warnings.append(f"Edge.Cuts outline is not closed: open end near "
+                                         f"({coords[0][0]:g}, {coords[0][1]:g})")
+        result = None
+        for ring in rings:
+            poly = shapely.make_valid(Polygon(ring))
+            result = poly if result is None else result.symmetric_difference(poly)
+        if result is None or result.is_empty:
+            return None
+        polys = [g for g in getattr(result, "geoms", [result]) if isinstance(g, Polygon)]
+        return polys[0] if len(polys) == 1 else MultiPolygon(polys)
+
+    def _footprint_edges(self, open_lines: list, rings: list) -> None:
+        """Edge.Cuts drawings inside footprints: only footprints that mention Edge.Cuts are parsed."""
+        if not len(self.footprint_rows()):
+            return
+        items = self.s.items
+        hits, at = [], self.data.find(b"Edge.Cuts")
+        while at >= 0:
+            hits.append(at)
+            at = self.data.find(b"Edge.Cuts", at + 9)
+        owners = np.searchsorted(items[:, 0], np.asarray(hits, dtype=np.int64), side="right") - 1 if hits else []
+        for parent in sorted({int(o) for o in owners if o >= 0 and self.s.heads[int(o)] == b"footprint"}):
+            a, b = (int(v) for v in items[parent])
+            fp = self.footprint(a, b)
+            node = self.s.parse(a, b, skip=("filled_polygon", "fill_segments", "model", "zone", "pad"))
+            for item in node[1:]:
+                if isinstance(item, list) and item and str(item[0]).startswith("fp_") and _on_edge(item):
+                    self._edge_item(item, fp, a, open_lines, rings)
+
+    def footprint_rows(self) -> np.ndarray:
+        return np.flatnonzero(self.s.heads == b"footprint")
+
+    def _edge_item(self, node: list, fp: Footprint | None, offset: int, open_lines: list, rings: list) -> None:
+        kind = str(node[0])[3:]
+        move = (lambda p: fp.to_board(*p)) if fp is not None else (lambda p: p)
+        try:
+            if kind == "line":
+                open_lines.append(np.array([move(_xy(node, "start")), move(_xy(node, "end"))]))
+            elif kind == "arc":
+                if _child(node, "mid") is None:
+                    raise ValueError("arc without (mid ...); KiCad 5 arcs are not read")
+                arc = Arc(move(_xy(node, "start")), move(_xy(node, "mid")), move(_xy(node, "end")))
+                open_lines.append(np.array(piece_points(arc)))
+            elif kind == "rect":
+                (x0, y0), (x1, y1) = _xy(node, "start"), _xy(node, "end")
+                rings.append(np.array([move(p) for p in ((x0, y0), (x1, y0), (x1, y1), (x0, y1), (x0, y0))]))
+            elif kind == "circle":
+                (cx, cy), (ex, ey) = _xy(node, "center"), _xy(node, "end")
+                r = math.hypot(ex - cx, ey - cy)
+                n = max(16, math.ceil(math.pi / math.acos(max(-1.0, 1 - 0.25e-3 / r)))) if r > 1e-3 else 16
+                t = np.linspace(0, 2 * math.pi, n + 1)
+                pts = np.column_stack([cx + r * np.cos(t), cy + r * np.sin(t)])
+                pts[-1] = pts[0]
+                rings.append(np.array([move(p) for p in pts]))
+            elif kind == "poly":
+                ring = _ring(_child(node, "pts"))
+                rings.append(np.array([move(p) for p in np.vstack([ring, ring[:1]])]))
+            elif kind == "curve":
+                p0, p1, p2, p3 = _ring(_child(node, "pts"))[:4]
+                t = np.linspace(0, 1, 65)[:, None]
+                pts = (1 - t) ** 3 * p0 + 3 * (1 - t) ** 2 * t * p1 + 3 * (1 - t) * t ** 2 * p2 + t ** 3 * p3
+                open_lines.append(np.array([move(p) for p in pts]))
+        except (TypeError, ValueError, IndexError) as err:
+            raise self.fail(offset, f"bad {node[0]} on Edge.Cuts: {err}") from None
+
+
+def _row_numbers(row: tuple, fields: tuple[int, ...], counts: tuple[int, ...]) -> list[float] | None:
+    out: list[float] = []
+    for f, n in zip(fields, counts):
+        parts = row[f].split()
+        if len(parts) != n:
+            return None
+        try:
+            values = [float(v) for v in parts]
+        except ValueError:
+            return None
+        if not all(math.isfinite(v) for v in values):
+            return None
+        out.extend(values)
+    return out
+
+
+# ---- small tree helpers ----
+
+def _child(node: list | None, head: str) -> list | None:
+    if node is None:
+        return None
+    for item in node:
+        if isinstance(item, list) and item and item[0] == head:
+            return item
+    return None
+
+
+def _children(node: list, head: str) -> list[list]:
+    return [item for item in node if isinstance(item, list) and item and item[0] == head]
+
+
+def _atom(node: list, head: str, default=None):
+    child = _child(node, head)
+    return child[1] if child is not None and len(child) > 1 else default
+
+
+def _num(node: list, head: str) -> float | None:
+    value = _atom(node, head)
+    return float(value) if value is not None and _is_number(value) else None
+
+
+def _xy(node: list, head: str) -> tuple[float, float]:
+    child = _child(node, head)
+    if child is None or len(child) < 3:
+        raise ValueError(f"missing ({head} X Y)")
+    return float(child[1]), float(child[2])
+
+
+def _is_number(value) -> bool:
+    if not isinstance(value, str) or isinstance(value, Quoted):
+        return False
+    try:
+        float(value)
+    except ValueError:
+        return False
+    return True
+
+
+def _as_token(value) -> bytes:
+    if isinstance(value, Quoted):
+        return b'"' + value.replace("\\", "\\\\").replace('"', '\\"').encode("utf-8") + b'"'
+    return str(value).encode("utf-8")
+
+
+def _text(token: bytes) -> str:
+    text = token.decode("utf-8")
+    return unescape(text[1:-1]) if text[:1] == '"' else text
+
+
+def _show(node) -> str:
+    text = repr(node)
+    return text if len(text) < 60 else text[:57] + "..."
+
+
+def _via_kind(words: bytes) -> str:
+    found = words.split()
+    return "blind" if b"blind" in found else "micro" if b"micro" in found else "through"
+
+
+def _on_edge(node: list) -> bool:
+    layer = _child(node, "layer")
+    return layer is not None and len(layer) > 1 and layer[1] == "Edge.Cuts"
+
+
+def _ring(pts: list | None) -> np.ndarray:
+    """Points of a (pts ...) list; (arc (start) (mid) (end)) entries are discretised (sagitta under 0.25 um)."""
+    out: list[tuple[float, float]] = []
+    if pts is None:
+        return np.zeros((0, 2))
+    for item in pts[1:]:
+        if not isinstance(item, list) or not item:
+            continue
+        if item[0] == "xy":
+            new = [(float(item[1]), float(item[2]))]
+        elif item[0] == "arc":
+            new = piece_points(Arc(_xy(item, "start"), _xy(item, "mid"), _xy(item, "end")))
+        else:
+            continue
+        for p in new:
+            if not out or math.dist(out[-1], p) > 1e-9:
+                out.append(p)
+    if len(out) > 1 and math.dist(out[0], out[-1]) <= 1e-9:
+        out.pop()
+    return np.asarray(out, dtype=np.float64)
+
+
+def _copper_order(name: str) -> tuple[int, int]:
+    """Stack position from the layer name: F.Cu, In1.Cu, In2.Cu, ..., B.Cu."""
+    if name == "F.Cu":
+        return (0, 0)
+    if name == "B.Cu":
+        return (2, 0)
+    m = re.fullmatch(r"In(\d+)\.Cu", name)
+    return (1, int(m.group(1))) if m else (1, 10_000)
+
+
+def expand_layers(name: str, copper: tuple[str, ...], names: dict[str, str] | None = None) -> list[str]:
+    """Copper layers a layer token stands for: "*.Cu" is all, "F&B.Cu" the outer two; non-copper gives []."""
+    if name == "*.Cu":
+        return list(copper)
+    if name == "F&B.Cu":
+        return [n for n in ("F.Cu", "B.Cu") if n in copper]
+    if name in copper:
+        return [name]
+    if names:
+        for canonical, user in names.items():
+            if user == name and canonical in copper:
+                return [canonical]
+    return []

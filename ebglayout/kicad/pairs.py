@@ -1,0 +1,700 @@
+"""Differential pairs on a board: find them by net name, rebuild their centre-line, hand them to the engine.
+
+Centre-line: each net's tracks on a layer are chained into one ordered run of
+lines and arcs; pieces of the two traces that run parallel at the pair's pitch
+(lines: parallel at a constant distance; arcs: concentric) are paired in order,
+and the centre-line takes the midpoint of corresponding vertices.  For a pair
+routed as exact offsets of a centre-line (mitred 45-degree chamfers, concentric
+arc corners) this is that centre-line again: offsetting it by +-(width +
+spacing)/2 gives back both traces.  ``BoardPair.fit_error`` reports how closely
+it does; uncoupled lead-ins at the ends are left off.
+
+Orientation: coordinates stay KiCad's (mm, y down); the engine does not care
+which way y points.  The centre-line is directed so that the P trace lies on
+the positive-offset side of the engine's math frame, the left of travel when y
+points up.  Seen in KiCad, where y points down, P is therefore on the right of
+the direction of travel.  The engine's "P on the left" and this reading agree
+because both use the same numbers.
+"""
+from __future__ import annotations
+
+import copy
+import math
+from dataclasses import dataclass, field
+from typing import Iterable
+
+import numpy as np
+import shapely
+from scipy.spatial import cKDTree
+from shapely.geometry import LineString, MultiPolygon, Point
+from shapely.ops import nearest_points
+
+from ..errors import SpecError
+from ..path import CentreLine, arc_geometry, offset_pieces, piece_length, piece_points, polyline_of
+from ..spec import Arc, Line, TrackObstacle, ViaObstacle
+from .board import Board
+
+SUFFIXES = (("_DP", "_DN"), ("_P", "_N"), ("+", "-"), ("P", "N"))
+"""Net-name endings of a pair's positive and negative net, tried in this order (common practice)."""
+MATCH_TOLERANCE_MM = 1e-3
+"""Two pieces are partners when their distance stays within this of the pair's pitch (1 um)."""
+JOIN_TOLERANCE_MM = 1e-4
+"""Track ends closer than this are one node of a chain (KiCad writes exact 1 nm coordinates)."""
+
+
+@dataclass(frozen=True)
+class StraightSection:
+    """A stretch of the centre-line where both traces are straight: where a filter can sit."""
+
+    start: tuple[float, float]
+    end: tuple[float, float]
+    length: float
+
+
+@dataclass(frozen=True)
+class BoardPair:
+    """One coupled run of a differential pair on one layer, in board coordinates (mm, KiCad's y down)."""
+
+    base: str
+    net_p: str
+    net_n: str
+    layer: str
+    width: float
+    spacing: float
+    length: float
+    """Centre-line length of the coupled run."""
+    length_p: float
+    length_n: float
+    """Routed length of each net's tracks on this layer (the whole chain, lead-ins included)."""
+    path: tuple[Line | Arc, ...]
+    straight_runs: tuple[StraightSection, ...]
+    plane_layers: tuple[str, ...]
+    plane_net: str
+    fit_error: float
+    """Largest distance between a trace and the centre-line offset by +-(width + spacing)/2, in mm."""
+    warnings: tuple[str, ...] = field(default=())
+
+    @property
+    def pitch(self) -> float:
+        return self.width + self.spacing
+
+    @property
+    def stripline(self) -> bool:
+        return len(self.plane_layers) == 2
+
+
+def pair_nets(names: Iterable[str]) -> list[tuple[str, str, str]]:
+    """(base, positive net, negative net) for every pair of nets whose names differ only by a pair suffix."""
+    names = list(names)
+    present = set(names)
+    used: set[str] = set()
+    found = []
+    for name in sorted(present):
+        if name in used:
+            continue
+        for sp, sn in SUFFIXES:
+            for p_end, n_end in ((sp, sn), (sp.lower(), sn.lower())):
+                if name.endswith(p_end) and len(name) > len(p_end):
+                    partner = name[:-len(p_end)] + n_end
+                    if partner in present and partner not in used:
+                        found.append((name[:-len(p_end)], name, partner))
+                        used.update((name, partner))
+                        break
+            if name in used:
+                break
+    return sorted(found)
+
+
+def find_pairs(board: Board, plane_net: str = "GND", max_gap: float = 1.0, min_length: float = 1.0,
+               only: str | None = None) -> list[BoardPair]:
+    """Every coupled run of every pair found by net name, on every layer, sorted by name, layer and position.
+
+    ``max_gap`` bounds the edge-to-edge gap of a coupled run (common practice:
+    pair gaps are of the order of the trace width, well under a millimetre);
+    runs shorter than ``min_length`` (mm of overlap) are dropped: no filter cell fits there.
+    ``only`` keeps the pair whose base name or one of whose nets has that name.
+    """
+    seg_groups = _by_net(board.segments.net)
+    arc_groups = _by_net(board.arcs.net)
+    pairs: list[BoardPair] = []
+    for base, net_p, net_n in pair_nets(board.nets):
+        if only is not None and only not in (base, net_p, net_n):
+            continue
+        p_items = _net_items(board, board.net_index(net_p), seg_groups, arc_groups)
+        n_items = _net_items(board, board.net_index(net_n), seg_groups, arc_groups)
+        for li, layer in enumerate(board.copper_layers):
+            p_pieces, n_pieces = p_items.get(li, []), n_items.get(li, [])
+            if not p_pieces or not n_pieces:
+                continue
+            p_chains, n_chains = _chains(p_pieces), _chains(n_pieces)
+            length_p = sum(piece_length(p) for p, _ in p_pieces)
+            length_n = sum(piece_length(p) for p, _ in n_pieces)
+            for run in _runs(p_chains, n_chains, max_gap, min_length):
+                pairs.append(_board_pair(board, base, net_p, net_n, layer, run, length_p, length_n, plane_net))
+    return sorted(pairs, key=lambda bp: (bp.base, board.copper_layers.index(bp.layer), bp.path[0].start))
+
+
+# ---- chaining ----
+
+Piece = Line | Arc
+
+
+def _by_net(nets: np.ndarray) -> dict[int, np.ndarray]:
+    """Item indices grouped by net, in file order (one sort for the whole board)."""
+    if not len(nets):
+        return {}
+    order = np.argsort(nets, kind="stable")
+    keys, starts = np.unique(nets[order], return_index=True)
+    return {int(k): part for k, part in zip(keys.tolist(), np.split(order, starts[1:]), strict=True)}
+
+
+def _net_items(board: Board, net: int | None, seg_groups: dict, arc_groups: dict) -> dict[int, list]:
+    """A net's tracks as (piece, width), per copper-layer index."""
+    out: dict[int, list[tuple[Piece, float]]] = {}
+    if net is None:
+        return out
+    seg, arc = board.segments, board.arcs
+    for k in seg_groups.get(net, np.zeros(0, int)).tolist():
+        a, b = tuple(seg.start[k].tolist()), tuple(seg.end[k].tolist())
+        if math.dist(a, b) > 1e-9:
+            out.setdefault(int(seg.layer[k]), []).append((Line(a, b), float(seg.width[k])))
+    for k in arc_groups.get(net, np.zeros(0, int)).tolist():
+        a, m, b = (tuple(v[k].tolist()) for v in (arc.start, arc.mid, arc.end))
+        cross = (m[0] - a[0]) * (b[1] - a[1]) - (m[1] - a[1]) * (b[0] - a[0])
+        piece = Arc(a, m, b) if abs(cross) > 1e-12 else Line(a, b)
+        out.setdefault(int(arc.layer[k]), []).append((piece, float(arc.width[k])))
+    return out
+
+
+def _reverse(piece: Piece) -> Piece:
+    return Line(piece.end, piece.start) if isinstance(piece, Line) else Arc(piece.end, piece.mid, piece.start)
+
+
+def _chains(pieces: list[tuple[Piece, float]]) -> list[list[tuple[Piece, float]]]:
+    """Order connected pieces into chains, splitting at branches; collinear lines and co-circular arcs merged."""
+    ends = np.array([[p.start, p.end] for p, _ in pieces], dtype=float).reshape(-1, 2)
+    node = np.arange(len(ends))
+    for i, j in sorted(cKDTree(ends).query_pairs(JOIN_TOLERANCE_MM)):
+        a, b = _root(node, i), _root(node, j)
+        node[max(a, b)] = min(a, b)
+    node = np.array([_root(node, i) for i in range(len(ends))])
+    incident: dict[int, list[int]] = {}
+    for k, n in enumerate(node.tolist()):
+        incident.setdefault(n, []).append(k)
+    visited = [False] * len(pieces)
+    chains = []
+
+    def walk(end_index: int) -> list[tuple[Piece, float]]:
+        chain = []
+        k = end_index
+        while True:
+            piece_index, side = divmod(k, 2)
+            if visited[piece_index]:
+                break
+            visited[piece_index] = True
+            piece, width = pieces[piece_index]
+            chain.append((piece if side == 0 else _reverse(piece), width))
+            far = node[2 * piece_index + (1 - side)]
+            nxt = [e for e in incident[far] if not visited[e // 2]]
+            if len(incident[far]) != 2 or not nxt:
+                break
+            k = nxt[0]
+        return chain
+
+    for _, ks in sorted(incident.items()):
+        if len(ks) != 2:
+            for k in ks:
+                if not visited[k // 2]:
+                    chains.append(walk(k))
+    for i in range(len(pieces)):
+        if not visited[i]:
+            chains.append(walk(2 * i))
+    return [_merge(c) for c in chains if c]
+
+
+def _root(parent: np.ndarray, i: int) -> int:
+    while parent[i] != i:
+        i = parent[i]
+    return i
+
+
+def _merge(chain: list[tuple[Piece, float]]) -> list[tuple[Piece, float]]:
+    out: list[tuple[Piece, float]] = []
+    for piece, width in chain:
+        if out and out[-1][1] == width:
+            prev = out[-1][0]
+            if isinstance(prev, Line) and isinstance(piece, Line) and _collinear(prev.start, prev.end, piece.end):
+                out[-1] = (Line(prev.start, piece.end), width)
+                continue
+            if isinstance(prev, Arc) and isinstance(piece, Arc):
+                merged = _merge_arcs(prev, piece)
+                if merged is not None:
+                    out[-1] = (merged, width)
+                    continue
+        out.append((piece, width))
+    return out
+
+
+def _collinear(a, b, c, tol: float = 1e-5) -> bool:
+    ab = (b[0] - a[0], b[1] - a[1])
+    bc = (c[0] - b[0], c[1] - b[1])
+    ac = math.hypot(c[0] - a[0], c[1] - a[1])
+    if ac < 1e-9 or ab[0] * bc[0] + ab[1] * bc[1] <= 0:
+        return False
+    return abs((b[0] - a[0]) * (c[1] - a[1]) - (b[1] - a[1]) * (c[0] - a[0])) / ac < tol
+
+
+def _merge_arcs(a: Arc, b: Arc) -> Arc | None:
+    ga, gb = arc_geometry(a), arc_geometry(b)
+    if (math.dist(ga.centre, gb.centre) > JOIN_TOLERANCE_MM or abs(ga.radius - gb.radius) > JOIN_TOLERANCE_MM
+            or ga.sweep * gb.sweep <= 0 or abs(ga.sweep + gb.sweep) >= 2 * math.pi - 1e-6):
+        return None
+    t = ga.start_angle + (ga.sweep + gb.sweep) / 2
+    return Arc(a.start, (ga.centre[0] + ga.radius * math.cos(t), ga.centre[1] + ga.radius * math.sin(t)), b.end)
+
+
+# ---- pairing pieces of the two traces ----
+
+@dataclass
+class _Run:
+    p: list[tuple[Piece, float]]
+    n: list[tuple[Piece, float]]
+    separations: list[float]
+    overlaps: list[float]
+
+
+def _partner(p: Piece, n: Piece) -> tuple[float, float] | None:
+    """(centre distance, overlap length) when two pieces run side by side in the same direction, else None."""
+    if isinstance(p, Line) and isinstance(n, Line):
+        ux, uy = p.end[0] - p.start[0], p.end[1] - p.start[1]
+        length = math.hypot(ux, uy)
+        ux, uy = ux / length, uy / length
+        d0 = ux * (n.start[1] - p.start[1]) - uy * (n.start[0] - p.start[0])
+        d1 = ux * (n.end[1] - p.start[1]) - uy * (n.end[0] - p.start[0])
+        s0 = (n.start[0] - p.start[0]) * ux + (n.start[1] - p.start[1]) * uy
+        s1 = (n.end[0] - p.start[0]) * ux + (n.end[1] - p.start[1]) * uy
+        if s1 <= s0 or abs(d1 - d0) > MATCH_TOLERANCE_MM or d0 * d1 <= 0:
+            return None
+        overlap = min(length, s1) - max(0.0, s0)
+        return (abs(d0 + d1) / 2, overlap) if overlap > 1e-6 else None
+    if isinstance(p, Arc) and isinstance(n, Arc):
+        gp, gn = arc_geometry(p), arc_geometry(n)
+        if math.dist(gp.centre, gn.centre) > MATCH_TOLERANCE_MM or gp.sweep * gn.sweep <= 0:
+            return None
+        sign = math.copysign(1.0, gp.sweep)
+        start = sign * _wrap(gn.start_angle - gp.start_angle)
+        lo, hi = max(0.0, start), min(abs(gp.sweep), start + abs(gn.sweep))
+        overlap = (hi - lo) * (gp.radius + gn.radius) / 2
+        return (abs(gp.radius - gn.radius), overlap) if overlap > 1e-6 else None
+    return None
+
+
+def _wrap(angle: float) -> float:
+    return (angle + math.pi) % (2 * math.pi) - math.pi
+
+
+def _boxes(chain: list[tuple[Piece, float]]) -> np.ndarray:
+    """(n, 4) bounding boxes of a chain's pieces (arcs by their three points and their circle's reach)."""
+    out = np.empty((len(chain), 4))
+    for i, (piece, _) in enumerate(chain):
+        pts = np.array([piece.start, piece.end] + ([piece.mid] if isinstance(piece, Arc) else []))
+        out[i, :2], out[i, 2:] = pts.min(axis=0), pts.max(axis=0)
+        if isinstance(piece, Arc):
+            geo = arc_geometry(piece)
+            out[i] = [max(out[i, 0] - geo.radius, geo.centre[0] - geo.radius),
+                      max(out[i, 1] - geo.radius, geo.centre[1] - geo.radius),
+                      min(out[i, 2] + geo.radius, geo.centre[0] + geo.radius),
+                      min(out[i, 3] + geo.radius, geo.centre[1] + geo.radius)]
+    return out
+
+
+def _runs(p_chains, n_chains, max_gap: float, min_length: float) -> list[_Run]:
+    """Maximal runs of consecutive partner pieces at one pitch, best first, not sharing pieces.
+
+    A bounding-box join of all P pieces against all N pieces (shapely's STRtree,
+    in C) leaves only pieces within reach of each other for the exact test.
+    """
+    p_owner = [(c, i) for c, chain in enumerate(p_chains) for i in range(len(chain))]
+    n_owner = [(c, k) for c, chain in enumerate(n_chains) for k in range(len(chain))]
+    p_box = np.vstack([_boxes(c) for c in p_chains])
+    n_box = np.vstack([_boxes(c) for c in n_chains])
+    reach = max(w for c in p_chains for _, w in c) + max(w for c in n_chains for _, w in c) + max_gap
+    tree = shapely.STRtree(shapely.box(*n_box.T))
+    hits = tree.query(shapely.box(*(p_box + [-reach, -reach, reach, reach]).T), predicate="intersects")
+    groups: dict[tuple[int, int], list[tuple[int, int]]] = {}
+    for a, b in hits.T.tolist():
+        (pc, i), (nc, k) = p_owner[a], n_owner[b]
+        groups.setdefault((pc, nc), []).append((i, k))
+    candidates = []
+    for (pc, nc), pairs_near in sorted(groups.items()):
+        p_chain, n_chain = p_chains[pc], n_chains[nc]
+        last = len(n_chain) - 1
+        for flipped in (False, True):
+            n_seq = [(_reverse(q), w) for q, w in reversed(n_chain)] if flipped else n_chain
+            table = {}
+            for i, k0 in pairs_near:
+                k = last - k0 if flipped else k0
+                (p, wp), (q, wq) = p_chain[i], n_seq[k]
+                hit = _partner(p, q)
+                if hit is not None and (wp + wq) / 2 < hit[0] <= (wp + wq) / 2 + max_gap:
+                    table[i, k] = hit
+            for (i, k), (sep, _) in sorted(table.items()):
+                prev = table.get((i - 1, k - 1))
+                if prev is not None and abs(prev[0] - sep) <= MATCH_TOLERANCE_MM:
+                    continue
+                t = 0
+                while abs(table.get((i + t + 1, k + t + 1), (math.inf,))[0] - sep) <= MATCH_TOLERANCE_MM:
+                    t += 1
+                found = [table[i + s, k + s] for s in range(t + 1)]
+                idx_n = [(nc, (last - (k + s)) if flipped else k + s) for s in range(t + 1)]
+                candidates.append((sum(h[1] for h in found), pc, list(range(i, i + t + 1)), idx_n,
+                                   _Run(p_chain[i:i + t + 1], n_seq[k:k + t + 1], [h[0] for h in found],
+                                        [h[1] for h in found])))
+    candidates = [c for c in candidates if c[0] >= min_length]
+    candidates.sort(key=lambda c: (-c[0], c[1], c[2]))
+    taken_p, taken_n, runs = set(), set(), []
+    for _, pc, ps, ns, run in candidates:
+        keys_p = {(pc, i) for i in ps}
+        if keys_p & taken_p or set(ns) & taken_n:
+            continue
+        taken_p |= keys_p
+        taken_n |= set(ns)
+        runs.append(run)
+    return runs
+
+
+# ---- centre-line ----
+
+def _centre_pieces(run: _Run) -> tuple[Piece, ...]:
+    """Midpoint centre-line of a run; its ends clipped to where both traces are present."""
+    n = len(run.p)
+    verts: list[tuple[float, float]] = [(0.0, 0.0)] * (n + 1)
+    for t in range(1, n):
+        a, b = run.p[t][0].start, run.n[t][0].start
+        verts[t] = ((a[0] + b[0]) / 2, (a[1] + b[1]) / 2)
+    verts[0] = _clipped_end(run.p[0][0], run.n[0][0], at_start=True)
+    verts[n] = _clipped_end(run.p[-1][0], run.n[-1][0], at_start=False)
+    pieces: list[Piece] = []
+    for t in range(n):
+        p, q = run.p[t][0], run.n[t][0]
+        a, b = verts[t], verts[t + 1]
+        if isinstance(p, Line):
+            pieces.append(Line(a, b))
+            continue
+        gp, gq = arc_geometry(p), arc_geometry(q)
+        cx, cy = (gp.centre[0] + gq.centre[0]) / 2, (gp.centre[1] + gq.centre[1]) / 2
+        r = (gp.radius + gq.radius) / 2
+        ta, tb = math.atan2(a[1] - cy, a[0] - cx), math.atan2(b[1] - cy, b[0] - cx)
+        sign = math.copysign(1.0, gp.sweep)
+        sweep = sign * ((sign * (tb - ta)) % (2 * math.pi))
+        tm = ta + sweep / 2
+        pieces.append(Arc(a, (cx + r * math.cos(tm), cy + r * math.sin(tm)), b))
+    return tuple(pieces)
+
+
+def _clipped_end(p: Piece, q: Piece, at_start: bool) -> tuple[float, float]:
+    """Centre-line end point where the later-starting (or earlier-ending) of the two traces begins (ends)."""
+    if isinstance(p, Line):
+        ux, uy = p.end[0] - p.start[0], p.end[1] - p.start[1]
+        length = math.hypot(ux, uy)
+        ux, uy = ux / length, uy / length
+        foot_s = (p.start[0] - q.start[0]) * ux + (p.start[1] - q.start[1]) * uy
+        foot = (q.start[0] + foot_s * ux, q.start[1] + foot_s * uy)
+        base = ((p.start[0] + foot[0]) / 2, (p.start[1] + foot[1]) / 2)
+        q_s0 = (q.start[0] - p.start[0]) * ux + (q.start[1] - p.start[1]) * uy
+        q_s1 = (q.end[0] - p.start[0]) * ux + (q.end[1] - p.start[1]) * uy
+        s = max(0.0, q_s0) if at_start else min(length, q_s1)
+        return (base[0] + s * ux, base[1] + s * uy)
+    gp, gq = arc_geometry(p), arc_geometry(q)
+    cx, cy = (gp.centre[0] + gq.centre[0]) / 2, (gp.centre[1] + gq.centre[1]) / 2
+    r = (gp.radius + gq.radius) / 2
+    sign = math.copysign(1.0, gp.sweep)
+    if at_start:
+        offset = sign * _wrap(gq.start_angle - gp.start_angle)
+        t = gp.start_angle + sign * max(0.0, offset)
+    else:
+        p_end, q_end = gp.start_angle + gp.sweep, gq.start_angle + gq.sweep
+        offset = sign * _wrap(q_end - p_end)
+        t = p_end + sign * min(0.0, offset)
+    return (cx + r * math.cos(t), cy + r * math.sin(t))
+
+
+def _reverse_path(pieces: tuple[Piece, ...]) -> tuple[Piece, ...]:
+    return tuple(_reverse(p) for p in reversed(pieces))
+
+
+def _fit_error(path: tuple[Piece, ...], run: _Run, offset: float) -> float:
+    """Largest gap between each trace and the centre-line offset towards it (both directions measured)."""
+    worst = 0.0
+    for pieces, sign in ((run.p, 1.0), (run.n, -1.0)):
+        offset_line = offset_pieces(path, sign * offset)
+        trace = LineString(_points([p for p, _ in pieces]))
+        samples = shapely.line_interpolate_point(offset_line, np.linspace(0, offset_line.length, 200))
+        inner = shapely.points(np.array([p.start for p, _ in pieces[1:]]).reshape(-1, 2))
+        worst = max(worst, float(shapely.distance(samples, trace).max()),
+                    float(shapely.distance(inner, offset_line).max()) if len(pieces) > 1 else 0.0)
+    return worst
+
+
+def _points(pieces: list[Piece]) -> list[tuple[float, float]]:
+    pts: list[tuple[float, float]] = []
+    for piece in pieces:
+        more = piece_points(piece)
+        pts.extend(more if not pts else more[1:])
+    return pts
+
+
+def _board_pair(board: Board, base: str, net_p: str, net_n: str, layer: str, run: _Run, length_p: float,
+                length_n: float, plane_net: str) -> BoardPair:
+    notes: list[str] = []
+    wp = _weighted_mode([w for _, w in run.p], [piece_length(p) for p, _ in run.p])
+    wn = _weighted_mode([w for _, w in run.n], [piece_length(p) for p, _ in run.n])
+    if len({w for _, w in run.p} | {w for _, w in run.n}) > 1:
+        notes.append(f"trace widths vary along the run ({wp:g} / {wn:g} mm most used); the engine uses one width")
+    pitch = _weighted_median(run.separations, run.overlaps)
+    width = (wp + wn) / 2
+    path = _centre_pieces(run)
+    tangent, mid = _tangent_mid(path[len(path) // 2])
+    near = nearest_points(LineString(_points([p for p, _ in run.p])), Point(mid))[0]
+    if tangent[0] * (near.y - mid[1]) - tangent[1] * (near.x - mid[0]) < 0:
+        path = _reverse_path(path)
+    fit = _fit_error(path, run, pitch / 2)
+    if fit > MATCH_TOLERANCE_MM:
+        notes.append(f"the traces are not exact offsets of one centre-line: off by up to {fit * 1000:.1f} um")
+    centre = CentreLine(path, pitch / 2)
+    straights = []
+    for r in centre.straight_runs():
+        s0, s1 = r.usable
+        if s1 - s0 > 1e-6:
+            straights.append(StraightSection(r.point_at(s0), r.point_at(s1), s1 - s0))
+    region = polyline_of(path)
+    planes, more = plane_layers_for(board, layer, plane_net, region)
+    notes += more
+    return BoardPair(
+        base=base, net_p=net_p, net_n=net_n, layer=layer, width=width, spacing=pitch - width, length=centre.length,
+        length_p=length_p, length_n=length_n, path=path, straight_runs=tuple(straights), plane_layers=planes,
+        plane_net=plane_net, fit_error=fit, warnings=tuple(notes),
+    )
+
+
+def _weighted_median(values: list[float], weights: list[float]) -> float:
+    """The value at half the total weight (pieces weighted by how long they run side by side)."""
+    order = np.argsort(values)
+    cumulative = np.cumsum(np.asarray(weights)[order])
+    return float(np.asarray(values)[order][int(np.searchsorted(cumulative, cumulative[-1] / 2))])
+
+
+def _weighted_mode(values: list[float], weights: list[float]) -> float:
+    totals: dict[float, float] = {}
+    for v, w in zip(values, weights):
+        totals[v] = totals.get(v, 0.0) + w
+    return max(sorted(totals), key=lambda v: totals[v])
+
+
+def _tangent_mid(piece: Piece) -> tuple[tuple[float, float], tuple[float, float]]:
+    if isinstance(piece, Line):
+        dx, dy = piece.end[0] - piece.start[0], piece.end[1] - piece.start[1]
+        length = math.hypot(dx, dy)
+        return (dx / length, dy / length), ((piece.start[0] + piece.end[0]) / 2, (piece.start[1] + piece.end[1]) / 2)
+    geo = arc_geometry(piece)
+    t = geo.start_angle + geo.sweep / 2
+    sign = math.copysign(1.0, geo.sweep)
+    return (-math.sin(t) * sign, math.cos(t) * sign), (geo.centre[0] + geo.radius * math.cos(t),
+                                                         geo.centre[1] + geo.radius * math.sin(t))
+
+
+# ---- planes and stack-up ----
+
+def _plane_zones(board: Board, layer: str, net: str | None, region) -> list:
+    return [z for z in board.zones if not z.is_rule_area and layer in z.layers and (net is None or z.net_name == net)
+            and (region is None or z.outline.intersects(region))]
+
+
+def plane_layers_for(board: Board, layer: str, plane_net: str | None = "GND",
+                     region=None) -> tuple[tuple[str, ...], list[str]]:
+    """Nearest copper layer above and below ``layer`` holding a zone of ``plane_net`` (under ``region`` if given).
+
+    ``plane_net`` None accepts a copper zone of any net.  Returns the layers
+    (one: microstrip, two: stripline) and notes, e.g. when a zone of another net
+    lies between the pair and the plane found.
+    """
+    order = board.copper_layers
+    i = order.index(layer)
+    found, notes = [], []
+    for side in (order[:i][::-1], order[i + 1:]):
+        for other in side:
+            if _plane_zones(board, other, plane_net, region):
+                found.append(other)
+                break
+            foreign = _plane_zones(board, other, None, region)
+            if foreign:
+                nets = ", ".join(sorted({z.net_name or "(no net)" for z in foreign}))
+                notes.append(f"{other} carries zone(s) of {nets} between {layer} and the {plane_net} plane")
+    if not found:
+        notes.append(f"no {plane_net or 'copper'} zone on any copper layer next to {layer}"
+                     + (" under the pair" if region is not None else ""))
+    return tuple(sorted(found, key=order.index)), notes
+
+
+def reference_layers(board: Board, plane_net: str = "GND") -> dict[str, tuple[str, ...]]:
+    """For every copper layer, the nearest layers above and below with a zone of ``plane_net`` (board-wide)."""
+    return {layer: plane_layers_for(board, layer, plane_net)[0] for layer in board.copper_layers}
+
+
+def cavity(board: Board, pair: BoardPair) -> tuple[float, float, str, str] | None:
+    """(h, er, from, to) of the dielectric under the first cut plane, towards the next plane away from the pair.
+
+    The next plane is the nearest copper layer beyond the cut plane with any
+    copper zone under the pair, else simply the next copper layer; with no layer
+    beyond, the dielectric between the pair and the plane is used.  None when
+    the board has no stack-up or the stack-up lacks the values.
+    """
+    if board.stackup is None or not pair.plane_layers:
+        return None
+    order = board.copper_layers
+    plane = pair.plane_layers[0]
+    i, j = order.index(plane), order.index(pair.layer)
+    beyond = order[:i][::-1] if i < j else order[i + 1:]
+    region = polyline_of(pair.path)
+    target = next((o for o in beyond if _plane_zones(board, o, None, region)), beyond[0] if beyond else pair.layer)
+    h, er = board.stackup.between(plane, target)
+    if h is None or er is None:
+        return None
+    return h, er, plane, target
+
+
+def pair_spec_dict(board: Board, pair: BoardPair, cut_spec_dict: dict) -> dict:
+    """The user's spec dict (cut, rules, stackup, ...) completed with the pair's geometry, ready for spec_from_dict.
+
+    The board decides pair.width/spacing/path/layer/nets; plane.layers, plane.net,
+    plane.outline (the Edge.Cuts polygon under the pair) and stackup.er/h come from
+    the board unless the spec gives them.  Lengths are written in mm (as "...mm"
+    strings when the spec's units are not mm), in KiCad's coordinates.
+    """
+    spec = copy.deepcopy(cut_spec_dict) if cut_spec_dict else {}
+    units = str(spec.get("units", "mm")).lower()
+
+    def mm(v: float):
+        return float(v) if units == "mm" else f"{float(v)!r}mm"
+
+    def point(p):
+        return [mm(p[0]), mm(p[1])]
+
+    path: list = [point(pair.path[0].start)]
+    for piece in pair.path:
+        path.append(point(piece.end) if isinstance(piece, Line) else {"arc": [point(piece.start), point(piece.mid),
+                                                                              point(piece.end)]})
+    spec.setdefault("name", _file_name(f"{pair.base}_{pair.layer}"))
+    spec["pair"] = {**spec.get("pair", {}), "width": mm(pair.width), "spacing": mm(pair.spacing), "path": path,
+                    "layer": pair.layer, "nets": [pair.net_p, pair.net_n]}
+    plane = dict(spec.get("plane", {}))
+    if "layers" not in plane:
+        if not pair.plane_layers:
+            raise SpecError("plane.layers", "(none found)", f"no {pair.plane_net} zone next to {pair.layer} under "
+                            f"{pair.base}; give plane.layers in the spec")
+        plane["layers"] = list(pair.plane_layers)
+    plane.setdefault("net", pair.plane_net)
+    outline = _outline_under(board, pair)
+    if "outline" not in plane and outline is not None:
+        plane["outline"] = [point(p) for p in outline]
+    spec["plane"] = plane
+    stack = dict(spec.get("stackup", {}))
+    if "er" not in stack or "h" not in stack:
+        found = cavity(board, pair)
+        if found is None:
+            missing = "er" if "er" not in stack else "h"
+            raise SpecError(f"stackup.{missing}", "(missing)", "the board's stack-up does not give it; "
+                            "add stackup.er and stackup.h to the spec")
+        stack.setdefault("er", found[1])
+        stack.setdefault("h", mm(found[0]))
+    spec["stackup"] = stack
+    return spec
+
+
+def _file_name(text: str) -> str:
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in text).lstrip(".") or "pair"
+
+
+def _outline_under(board: Board, pair: BoardPair) -> list[tuple[float, float]] | None:
+    geom = board.outline
+    if geom is None:
+        return None
+    polys = list(geom.geoms) if isinstance(geom, MultiPolygon) else [geom]
+    region = polyline_of(pair.path)
+    poly = max(polys, key=lambda g: g.intersection(region).length)
+    return [tuple(p) for p in np.asarray(poly.exterior.coords)[:-1].tolist()]
+
+
+# ---- other copper near a cut ----
+
+def obstacles(board: Board, layout_bounds: tuple[float, float, float, float], plane_layers: Iterable[str],
+              margin: float = 1.0, exclude_nets: Iterable[str] = ()) -> tuple[tuple[TrackObstacle, ...],
+                                                                            tuple[ViaObstacle, ...]]:
+    """Tracks (any copper layer) and vias/pads through the plane layers within ``margin`` of the bounds.
+
+    A bounding-box test over the numpy arrays picks the candidates; only those
+    are turned into objects.  Pads count when their copper reaches a plane
+    layer; each becomes a disc of its circumscribed diameter (conservative).
+    """
+    x0, y0, x1, y1 = layout_bounds
+    x0, y0, x1, y1 = x0 - margin, y0 - margin, x1 + margin, y1 + margin
+    skip = {i for i in (board.net_index(n) for n in exclude_nets) if i is not None}
+    names, layers = board.nets, board.copper_layers
+    planes = [board.layer_index(p) for p in plane_layers if board.layer_index(p) is not None]
+
+    def keep(lo, hi, net):
+        hit = (lo[:, 0] <= x1) & (hi[:, 0] >= x0) & (lo[:, 1] <= y1) & (hi[:, 1] >= y0)
+        return np.flatnonzero(hit & ~np.isin(net, list(skip)))
+
+    tracks: list[TrackObstacle] = []
+    seg = board.segments
+    half = seg.width[:, None] / 2
+    for k in keep(np.minimum(seg.start, seg.end) - half, np.maximum(seg.start, seg.end) + half, seg.net).tolist():
+        tracks.append(TrackObstacle((tuple(seg.start[k].tolist()), tuple(seg.end[k].tolist())), float(seg.width[k]),
+                                    layers[seg.layer[k]], names[seg.net[k]]))
+    arc = board.arcs
+    if len(arc):
+        centre, radius = _arc_circles(arc)
+        reach = radius[:, None] + arc.width[:, None] / 2
+        for k in keep(centre - reach, centre + reach, arc.net).tolist():
+            piece = Arc(*(tuple(v[k].tolist()) for v in (arc.start, arc.mid, arc.end)))
+            tracks.append(TrackObstacle(tuple(piece_points(piece)), float(arc.width[k]), layers[arc.layer[k]],
+                                        names[arc.net[k]]))
+    vias: list[ViaObstacle] = []
+    via = board.vias
+    spans_plane = np.zeros(len(via), dtype=bool)
+    for p in planes:
+        spans_plane |= (via.layers[:, 0] <= p) & (via.layers[:, 1] >= p)
+    r = via.size[:, None] / 2
+    for k in keep(via.at - r, via.at + r, via.net).tolist():
+        if spans_plane[k]:
+            vias.append(ViaObstacle(tuple(via.at[k].tolist()), float(via.size[k]), names[via.net[k]]))
+    pads = board.pads
+    if len(pads):
+        r = np.hypot(pads.size[:, 0], pads.size[:, 1])[:, None] / 2
+        near = keep(pads.at - r, pads.at + r, np.full(len(pads), -1))
+        plane_names = {layers[p] for p in planes}
+        for fp_index in sorted(set(pads.footprint[near].tolist())):
+            for pad in board.footprint(fp_index).pads:
+                d = math.hypot(*pad.size)
+                inside = (x0 - d / 2 <= pad.at[0] <= x1 + d / 2) and (y0 - d / 2 <= pad.at[1] <= y1 + d / 2)
+                if inside and plane_names & set(pad.copper) and pad.net not in skip:
+                    vias.append(ViaObstacle(pad.at, d, pad.net_name))
+    tracks.sort(key=lambda t: (t.layer, t.net, t.points))
+    vias.sort(key=lambda v: (v.at, v.net))
+    return tuple(tracks), tuple(vias)
+
+
+def _arc_circles(arc) -> tuple[np.ndarray, np.ndarray]:
+    """Centres (n, 2) and radii of the circles through each arc's three points (circumcentre formula)."""
+    (ax, ay), (mx, my), (bx, by) = arc.start.T, arc.mid.T, arc.end.T
+    d = 2 * (ax * (my - by) + mx * (by - ay) + bx * (ay - my))
+    safe = np.where(np.abs(d) < 1e-15, 1.0, d)
+    ux = ((ax**2 + ay**2) * (my - by) + (mx**2 + my**2) * (by - ay) + (bx**2 + by**2) * (ay - my)) / safe
+    uy = ((ax**2 + ay**2) * (bx - mx) + (mx**2 + my**2) * (ax - bx) + (bx**2 + by**2) * (mx - ax)) / safe
+    centre = np.column_stack([ux, uy])
+    radius = np.hypot(ax - ux, ay - uy)
+    straight = np.abs(d) < 1e-15
+    centre[straight] = ((arc.start + arc.end) / 2)[straight]
+    radius[straight] = np.hypot(*(arc.end - arc.start)[straight].T) / 2
+    return centre, radius
