@@ -17,6 +17,10 @@ EXAMPLES = {
     "size": "ebglayout size --target 8GHz --er 4.1 --h 0.1 --style bridged --bridge 0.12,0.6",
     "refine": "ebglayout refine samples/hx2_l0_tx_straight.toml --observed 15.2GHz",
     "params": "ebglayout params --markdown",
+    "pairs": "ebglayout pairs samples/hx2_hub.kicad_pcb",
+    "place": "ebglayout place samples/hx2_hub.kicad_pcb --pair HX2_L0_TX_P HX2_L0_TX_N "
+             "--spec samples/hx2_l0_tx_straight.toml --out hub_filtered.kicad_pcb",
+    "kicad-package": "ebglayout kicad-package --out dist/",
 }
 
 
@@ -45,8 +49,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = command("check", "run the design-rule checks on a spec")
-    p.add_argument("spec", type=Path)
+    p = command("check", "run the design-rule checks on a spec, or on every filter placed on a board")
+    p.add_argument("spec", type=Path, nargs="?")
+    p.add_argument("--board", type=Path, help="re-check the filters already placed on this .kicad_pcb")
     p.add_argument("--json", action="store_true", help="print the JSON report instead of the table")
     p.add_argument("--junit", type=Path, help="also write a JUnit XML file (one test case per rule)")
     p.add_argument("--strict", action="store_true", help="warnings fail too (exit 1)")
@@ -68,6 +73,24 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("spec", type=Path)
     p.add_argument("--observed", required=True, help='notch frequency the simulation found, e.g. "7.4GHz"')
     p.add_argument("--json", action="store_true", help="print JSON")
+
+    p = command("pairs", "list the differential pairs on a KiCad board and the straight runs a filter fits on")
+    p.add_argument("board", type=Path)
+    p.add_argument("--min-run", default="2mm", help="shortest straight run worth listing (default 2 mm)")
+    p.add_argument("--json", action="store_true", help="print JSON")
+
+    p = command("place", "place filters under pairs of a KiCad board and write a new board beside its .kicad_dru")
+    p.add_argument("board", type=Path)
+    p.add_argument("--pair", nargs=2, metavar=("NET_P", "NET_N"), help="the pair's two nets")
+    p.add_argument("--spec", type=Path, help="the filter spec (cut, rules; pair geometry comes from the board)")
+    p.add_argument("--plan", type=Path, help="TOML plan with [[filter]] tables (spec + pair or match) for many pairs")
+    p.add_argument("--out", type=Path, required=True, help="the new .kicad_pcb (never the input)")
+    p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and report.json here")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
+
+    p = command("kicad-package", "build the KiCad Plugin and Content Manager zip of the action plugin")
+    p.add_argument("--out", type=Path, required=True, help="output folder")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     command("params", "list every spec key with its default and meaning").add_argument(
         "--markdown", action="store_true", help="as a Markdown table (for the README)")
@@ -135,23 +158,92 @@ def _build(args) -> int:
 
 
 def _check(args) -> int:
-    from .pipeline import make_filter
-    from .spec import load_spec
+    if (args.spec is None) == (args.board is None):
+        raise EbgError("check: give either a SPEC file or --board BOARD")
+    if args.board is not None:
+        from .kicad.workflow import check_board
 
-    result = make_filter(load_spec(args.spec))
-    report = result.checks
+        reports = check_board(args.board)
+        if not reports:
+            print(f"{args.board}: no ebglayout filters on this board")
+    else:
+        from .pipeline import make_filter
+        from .spec import load_spec
+
+        reports = [make_filter(load_spec(args.spec)).checks]
     if args.junit:
         from .checks.junit import junit_xml
         from .outputs import StagedOutputs
 
         with StagedOutputs(args.junit.parent if str(args.junit.parent) else Path("."), force=True) as staged:
-            staged.write_text(args.junit.name, junit_xml([report], strict=args.strict))
+            staged.write_text(args.junit.name, junit_xml(reports, strict=args.strict))
     if args.json:
-        print(json.dumps(report.to_json(), indent=2))
+        data = [r.to_json() for r in reports]
+        print(json.dumps(data[0] if args.spec is not None else data, indent=2))
     else:
-        print(report.format_table())
-    failed = bool(report.errors) or (args.strict and bool(report.warnings))
+        print("\n\n".join(r.format_table() for r in reports))
+    failed = any(r.errors or (args.strict and r.warnings) for r in reports)
     return 1 if failed else 0
+
+
+def _pairs(args) -> int:
+    from .kicad.board import read_board
+    from .kicad.workflow import pair_table
+    from .units import parse_length
+
+    rows = pair_table(read_board(args.board), parse_length(args.min_run, "--min-run"))
+    if args.json:
+        print(json.dumps(rows, indent=2))
+        return 0
+    if not rows:
+        print(f"{args.board}: no differential pairs found (net names ending _P/_N, P/N, +/-, _DP/_DN)")
+    for r in rows:
+        runs = ", ".join(f"{x['length']:.2f} mm from ({x['start'][0]:.2f}, {x['start'][1]:.2f})"
+                         for x in r["straight_runs"]) or "none long enough"
+        print(f"{r['pair']:<16} {r['nets'][0]}/{r['nets'][1]} on {r['layer']}: width {r['width']:g} mm, "
+              f"spacing {r['spacing']:g} mm, length {r['length']:.3f} mm (P {r['length_p']:.3f}, N {r['length_n']:.3f}), "
+              f"planes {'+'.join(r['planes']) or 'none'}; straight runs: {runs}")
+        for warning in r["warnings"]:
+            print(f"    note: {warning}")
+    return 0
+
+
+def _place(args) -> int:
+    from .kicad.workflow import Request, load_plan, load_spec_dict, place
+
+    if args.plan is not None:
+        if args.pair or args.spec:
+            raise EbgError("place: give either --plan, or --pair with --spec, not both")
+        requests = load_plan(args.plan)
+    elif args.pair and args.spec:
+        requests = [Request(load_spec_dict(args.spec), str(args.spec), pair=tuple(args.pair))]
+    else:
+        raise EbgError("place: needs --pair NET_P NET_N with --spec SPEC, or --plan PLAN")
+    placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"))
+    for p in placement.filters:
+        print(p.result.checks.format_table())
+    for risk in placement.risks:
+        print(f"  KiCad fill: {risk}")
+    print(f"wrote {args.out} and {args.out.with_suffix('.kicad_dru').name} with {len(placement.filters)} filter(s); "
+          f"{args.board} is unchanged. Refill zones in KiCad after opening it.")
+    return 1 if any(p.result.checks.errors for p in placement.filters) else 0
+
+
+def _progress(label: str):
+    """A progress bar on a terminal only (never in CI logs)."""
+    if not sys.stderr.isatty():
+        return None
+    from tqdm import tqdm
+
+    return lambda items: tqdm(items, desc=label, unit="filter", leave=False)
+
+
+def _kicad_package(args) -> int:
+    from .kicad.package import build_package
+
+    path, digest = build_package(args.out, args.force)
+    print(f"wrote {path} (sha256 {digest}) and repository-entry.json")
+    return 0
 
 
 def _estimate(args) -> int:
@@ -213,7 +305,7 @@ def _params(args) -> int:
 
 
 COMMANDS = {"demo": _demo, "build": _build, "check": _check, "estimate": _estimate, "size": _size,
-            "refine": _refine, "params": _params}
+            "refine": _refine, "pairs": _pairs, "place": _place, "kicad-package": _kicad_package, "params": _params}
 
 if __name__ == "__main__":
     sys.exit(main())

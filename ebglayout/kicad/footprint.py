@@ -22,6 +22,7 @@ in board coordinates (KiCad's convention in board files), everything else locall
 from __future__ import annotations
 
 import hashlib
+import json
 import uuid
 from dataclasses import dataclass
 
@@ -146,6 +147,7 @@ class _Writer:
         self.reference = reference
         self.plane_net = plane_net
         self.priority = zone_priority
+        self.design: dict | None = None
         outline = unary_union([c.outline for c in layout.cuts])
         if outline.is_empty:
             raise SpecError("cut", "(empty)", "the layout has no plane cut to put into a footprint")
@@ -314,7 +316,18 @@ class _Writer:
             head = f"  (footprint {fp_id} locked (layer \"F.Cu\")\n    (tedit 0) {self.ident()} {at}\n"
         else:
             head = f"  (footprint {fp_id} locked (layer \"F.Cu\") {self.ident()} {at}\n"
-        return head + self.body("    ") + "  )\n"
+        return head + self.design_property("    ") + self.body("    ") + "  )\n"
+
+    def design_property(self, indent: str) -> str:
+        """The spec the filter was built from, as JSON in a footprint property, so a re-check can rebuild the design."""
+        if self.design is None:
+            return ""
+        text = json.dumps(self.design, sort_keys=True, separators=(",", ":"), ensure_ascii=True, default=str)
+        value = quote(text)
+        if self.d.yes_no:  # KiCad 8+: properties carry position, layer and visibility (from memory of the 8.0 writer)
+            return (f"{indent}(property {quote(DESIGN_PROPERTY)} {value} (at 0 0 0) (layer \"F.Fab\") (hide yes)\n"
+                    f"{indent}  (effects (font (size 0.5 0.5) (thickness 0.08))))\n")
+        return f"{indent}(property {quote(DESIGN_PROPERTY)} {value})\n"
 
 
 def _group_layers(layout: Layout, role: str) -> list[tuple[MultiPolygon, tuple[str, ...]]]:
@@ -329,6 +342,10 @@ def _group_layers(layout: Layout, role: str) -> list[tuple[MultiPolygon, tuple[s
         else:
             groups.append((geometry, [cut.layer]))
     return [(g, tuple(names)) for g, names in groups]
+
+
+DESIGN_PROPERTY = "ebglayout_spec"
+"""Footprint property holding the spec (JSON) a placed filter was built from; `check --board` reads it back."""
 
 
 def area_name(layout: Layout) -> str:
@@ -353,11 +370,13 @@ def footprint_text(layout: Layout, dialect: int = KICAD6, at: tuple[float, float
 
 def board_footprint_text(layout: Layout, board_version: int = KICAD6, at: tuple[float, float] | None = None,
                          reference: str = "FIL1", plane_net: tuple[int, str] | None = None,
-                         zone_priority: int = 1) -> str:
+                         zone_priority: int = 1, design: dict | None = None) -> str:
     """The filter as a footprint block for a .kicad_pcb of ``board_version`` (insert with ``insert_footprints``).
 
     ``plane_net`` = (code, name) of the plane's net in that board, needed by bridged
     filters whose patch zone must join the plane; ``zone_priority`` must exceed the
     plane zone's priority (``insert.fill_risks`` reports it otherwise).
     """
-    return _Writer(layout, board_version, at, True, reference, plane_net, zone_priority).board_item()
+    writer = _Writer(layout, board_version, at, True, reference, plane_net, zone_priority)
+    writer.design = design
+    return writer.board_item()

@@ -1,0 +1,344 @@
+"""Board-level jobs: list pairs, place filters under pairs, re-check placed filters.
+
+Everything here is glue: the board reader supplies the pair geometry and the
+other copper, the engine builds the layout, the checks measure it against the
+board's real tracks, and footprint/rules/insert write the result.  The input
+board is never written; the output board differs from it only by inserted items.
+"""
+from __future__ import annotations
+
+import fnmatch
+import json
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import shapely
+from shapely.affinity import affine_transform
+from shapely.geometry import LineString
+from shapely.ops import linemerge
+
+from ..checks import CheckReport, run_checks
+from ..checks.rules import CheckContext, RuleResult
+from ..errors import BoardError, SpecError
+from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
+from ..outputs import StagedOutputs
+from ..path import piece_points
+from ..pipeline import FilterResult, write_filter
+from ..spec import Arc, spec_from_dict
+from .board import Board, read_board
+from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
+from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
+from .pairs import BoardPair, find_pairs, obstacles, pair_spec_dict, plane_layers_for
+from .rules import merge_rules, rules_text
+from .sexpr import unescape
+
+
+@dataclass(frozen=True)
+class Request:
+    """Place the filter of ``spec`` (raw spec dict, from ``source``) under the pair(s) selected by nets or pattern."""
+
+    spec: dict
+    source: str
+    pair: tuple[str, str] | None = None
+    match: str | None = None
+
+
+@dataclass
+class PlacedFilter:
+    reference: str
+    pair: BoardPair
+    result: FilterResult
+    design: dict
+    item: str
+
+
+@dataclass
+class Placement:
+    """What `place` did: the filters, the new board text and rule text, and the fill risks KiCad's pour would hit."""
+
+    filters: list[PlacedFilter]
+    board_text: str
+    rules_text: str
+    risks: list[str] = field(default_factory=list)
+
+
+def load_spec_dict(path: str | Path) -> dict:
+    path = Path(path)
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as err:
+        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__})") from None
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
+
+
+def load_plan(path: str | Path) -> list[Request]:
+    """A plan: one ``[[filter]]`` table per rule, ``spec`` relative to the plan, and ``pair = [P, N]`` or ``match``."""
+    path = Path(path)
+    raw = load_spec_dict(path)
+    if set(raw) - {"filter"} or not isinstance(raw.get("filter"), list) or not raw["filter"]:
+        raise SpecError("plan", path.name, "must hold one or more [[filter]] tables and nothing else")
+    requests = []
+    for i, item in enumerate(raw["filter"]):
+        key = f"filter[{i}]"
+        if not isinstance(item, dict) or "spec" not in item or set(item) - {"spec", "pair", "match"}:
+            raise SpecError(key, item, "must be {spec = \"path.toml\", pair = [\"P\", \"N\"]} or {spec = ..., match = \"LANE*\"}")
+        if ("pair" in item) == ("match" in item):
+            raise SpecError(key, item, "give exactly one of pair = [P, N] and match = \"pattern\"")
+        pair = item.get("pair")
+        if pair is not None and (not isinstance(pair, list) or len(pair) != 2 or not all(isinstance(n, str) for n in pair)):
+            raise SpecError(f"{key}.pair", pair, "must be two net names [P, N]")
+        if "match" in item and not isinstance(item["match"], str):
+            raise SpecError(f"{key}.match", item["match"], "must be a shell-style pattern string")
+        spec_path = (path.parent / str(item["spec"])).resolve()
+        requests.append(Request(load_spec_dict(spec_path), str(spec_path), tuple(pair) if pair else None, item.get("match")))
+    return requests
+
+
+def select_pairs(pairs: list[BoardPair], request: Request) -> list[BoardPair]:
+    """The pair runs a request names: the longest run of the named pair, or of every pair matching the pattern."""
+    longest: dict[str, BoardPair] = {}
+    for bp in pairs:
+        if bp.base not in longest or bp.length > longest[bp.base].length:
+            longest[bp.base] = bp
+    if request.pair is not None:
+        wanted = set(request.pair)
+        found = [bp for bp in longest.values() if {bp.net_p, bp.net_n} == wanted]
+        if not found:
+            known = ", ".join(f"{bp.net_p}/{bp.net_n}" for bp in sorted(longest.values(), key=lambda b: b.base)) or "none"
+            raise SpecError("--pair", " ".join(request.pair), f"is not a routed differential pair on this board "
+                            f"(pairs found: {known})")
+        return found
+    found = [bp for base, bp in sorted(longest.items()) if fnmatch.fnmatchcase(base, request.match)]
+    if not found:
+        raise SpecError("match", request.match, "matches no differential pair on this board")
+    return found
+
+
+def net_lines(board: Board, net: str, layer: str) -> list[LineString]:
+    """One net's tracks on one layer chained into polylines (arcs as chords within 0.25 um)."""
+    ni, li = board.net_index(net), board.layer_index(layer)
+    if ni is None or li is None:
+        return []
+    seg, arc = board.segments, board.arcs
+    lines = [LineString([tuple(a), tuple(b)]) for a, b in
+             zip(seg.start[(seg.net == ni) & (seg.layer == li)].tolist(), seg.end[(seg.net == ni) & (seg.layer == li)].tolist())]
+    mask = (arc.net == ni) & (arc.layer == li)
+    for s, m, e in zip(arc.start[mask].tolist(), arc.mid[mask].tolist(), arc.end[mask].tolist()):
+        lines.append(LineString(piece_points(Arc(tuple(s), tuple(m), tuple(e)))))
+    if not lines:
+        return []
+    merged = linemerge(lines)
+    return list(getattr(merged, "geoms", [merged]))
+
+
+def board_traces(board: Board, layout: Layout, pair: BoardPair) -> tuple:
+    """The pair's real copper near the cut, as traces the crossing code can measure."""
+    area = shapely.union_all([c.outline for c in layout.cuts]).buffer(1.0)
+    traces = []
+    for polarity, net in (("P", pair.net_p), ("N", pair.net_n)):
+        candidates = net_lines(board, net, pair.layer)
+        if not candidates:
+            raise BoardError(f"{board.name}: net {net} has no tracks on {pair.layer}")
+        line = max(candidates, key=lambda g: g.intersection(area).length)
+        traces.append(trace_from_line(polarity, net, pair.layer, pair.width, line))
+    return tuple(traces)
+
+
+def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None) -> CheckContext:
+    """Other copper near the cut, the board outline, whether the pair has planes on both sides, and references."""
+    spec = layout.spec
+    bounds = shapely.union_all([c.outline for c in layout.cuts]).bounds
+    tracks, vias = obstacles(board, bounds, spec.plane_layers, exclude_nets=spec.nets)
+    found, _ = plane_layers_for(board, spec.pair_layer, spec.plane_net)
+    outline = board.outline
+    if outline is not None and outline.geom_type == "MultiPolygon":
+        centre = shapely.Point(layout.cells[0].centre)
+        outline = min(outline.geoms, key=lambda g: g.distance(centre))
+    # A signal layer's return current runs on the nearest plane of any net, so references ignore the net.
+    references = {layer: plane_layers_for(board, layer, None)[0] for layer in board.copper_layers}
+    return CheckContext(tracks=tracks, vias=vias, plane_outline=outline, sandwiched=len(found) == 2,
+                        references=references, estimate=estimate)
+
+
+def _next_reference(board: Board, taken: set[str]) -> str:
+    used = {fp.reference for fp in board.footprints} | taken
+    n = 1
+    while f"FIL{n}" in used:
+        n += 1
+    return f"FIL{n}"
+
+
+def _filter_name(base: str, spec: dict, source: str) -> str:
+    stem = str(spec.get("name") or Path(source).stem)
+    text = f"{base}_{stem}" if base not in stem else stem
+    return re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
+
+
+def build_on_board(board: Board, request: Request, pair: BoardPair, reference: str) -> PlacedFilter:
+    """Build, estimate and check one filter under ``pair`` against the board's real copper."""
+    from ..estimate.band import estimate_layout
+
+    user = {k: (dict(v) if isinstance(v, dict) else v) for k, v in request.spec.items()}
+    user.get("plane", {}).pop("outline", None)  # on a board, the board's Edge.Cuts decide the outline
+    design = pair_spec_dict(board, pair, user)
+    design["name"] = _filter_name(pair.base, request.spec, request.source)
+    spec = spec_from_dict(design, default_name=design["name"])
+    layout = build_layout(spec)
+    if layout.route_generated:
+        raise SpecError("cut.style", "folded", f"{pair.base} is routed straight on the board; `place` never re-routes "
+                        "tracks, so draw the folded route on the board first (or use `build` to get the route)")
+    layout = with_copper(layout, traces=board_traces(board, layout, pair))
+    estimate = estimate_layout(layout)
+    checks = run_checks(layout, board_context(board, layout, pair), estimate=estimate)
+    text = board.text
+    item = board_footprint_text(layout, board_version(text, board.name), reference=reference,
+                                plane_net=plane_net(text, spec.plane_net, board.name),
+                                zone_priority=zone_priority_for(text, layout, spec.plane_net, board.name), design=design)
+    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate), design, item)
+
+
+def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
+    """Every filter of every request, inserted into one new board text with one merged rule file."""
+    pairs = find_pairs(board)
+    jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
+    seen: set[str] = set()
+    for _, pair in jobs:
+        if pair.base in seen:
+            raise SpecError("pair", pair.base, "is asked for twice; one filter per pair")
+        seen.add(pair.base)
+    placed: list[PlacedFilter] = []
+    taken: set[str] = set()
+    for request, pair in (progress(jobs) if progress else jobs):
+        reference = _next_reference(board, taken)
+        taken.add(reference)
+        placed.append(build_on_board(board, request, pair, reference))
+    new_text = insert_footprints(board.text, [p.item for p in placed], board.name)
+    rules = merge_rules(existing_rules, rules_text(*(p.result.layout for p in placed)))
+    risks = [f"{p.reference} {p.result.name}: {risk}" for p in placed
+             for risk in fill_risks(new_text, p.result.layout, p.result.layout.spec.plane_net, rules)]
+    return Placement(placed, new_text, rules, risks)
+
+
+def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
+          force: bool = False, progress=None) -> Placement:
+    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs."""
+    board_path, out_path = Path(board_path), Path(out_path)
+    if out_path.suffix != ".kicad_pcb":
+        raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
+    staged = StagedOutputs(out_path.parent if str(out_path.parent) else Path("."), force=force,
+                           protect=(board_path, board_path.with_suffix(".kicad_dru")))
+    rules_name = out_path.with_suffix(".kicad_dru").name
+    staged.require_free([out_path.name, rules_name])
+    board = read_board(board_path)
+    source_rules = board_path.with_suffix(".kicad_dru")
+    existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
+    placement = plan_placement(board, requests, existing, progress)
+    if artifacts is not None:
+        art = StagedOutputs(artifacts, force=force)
+        art.require_free([f"{p.result.name}/report.json" for p in placement.filters])
+    with staged:
+        with open(staged.path(out_path.name), "w", encoding="utf-8", newline="") as handle:
+            handle.write(placement.board_text)
+        staged.write_text(rules_name, placement.rules_text)
+        if artifacts is not None:
+            for p in placement.filters:
+                with StagedOutputs(Path(artifacts) / p.result.name, force=force) as folder:
+                    write_filter(p.result, folder)
+    return placement
+
+
+# ---- re-checking filters already on a board ----
+
+def placed_designs(board: Board) -> list[tuple[object, dict]]:
+    """(footprint, design spec dict) for every ebglayout filter on the board, found by its design property."""
+    pattern = re.compile(rb'\(property "' + DESIGN_PROPERTY.encode() + rb'" "((?:[^"\\]|\\.)*)"')
+    found = []
+    for index, (start, end) in enumerate(board.footprint_spans.tolist()):
+        match = pattern.search(board.data, start, end)
+        if not match:
+            continue
+        try:
+            design = json.loads(unescape(match.group(1).decode("utf-8")))
+        except (ValueError, UnicodeDecodeError):
+            raise BoardError(f"{board.name}: footprint at byte {start} carries an unreadable {DESIGN_PROPERTY}") from None
+        found.append((board.footprint(index), design))
+    return found
+
+
+def _moved(layout: Layout, footprint) -> Layout:
+    """The design moved and turned to where the footprint sits now (KiCad: y down, rotation counter-clockwise on screen)."""
+    ox, oy = footprint_origin(layout)
+    (x, y), rot = footprint.at, footprint.rotation
+    if math.isclose(x, ox, abs_tol=1e-6) and math.isclose(y, oy, abs_tol=1e-6) and math.isclose(rot % 360, 0, abs_tol=1e-9):
+        return layout
+    t = math.radians(rot)
+    c, s = math.cos(t), math.sin(t)
+    # board = at + R(local) with local = design - origin; R from KiCad's footprint transform (y down)
+    matrix = [c, s, -s, c, x - c * ox - s * oy, y + s * ox - c * oy]
+
+    def move(g):
+        return as_multipolygon(affine_transform(g, matrix))
+
+    cuts = tuple(PlaneCut(cut.layer, move(cut.slot), move(cut.patch), move(cut.bridge), move(cut.outline))
+                 for cut in layout.cuts)
+    cells = tuple(replace(cell, patch=affine_transform(cell.patch, matrix), outer=affine_transform(cell.outer, matrix),
+                          bridges=tuple(affine_transform(b, matrix) for b in cell.bridges),
+                          centre=tuple(np.round(affine_transform(shapely.Point(cell.centre), matrix).coords[0], 6)),
+                          rotation_deg=(cell.rotation_deg - rot) % 360)
+                  for cell in layout.cells)
+    return replace(with_copper(layout, cuts=cuts), cells=cells)
+
+
+def check_board(board_path: str | Path) -> list[CheckReport]:
+    """`ebglayout check --board`: every placed filter re-checked against the board's copper as it is now."""
+    from ..estimate.band import estimate_layout
+
+    board = read_board(board_path)
+    designs = placed_designs(board)
+    if not designs:
+        return []
+    pairs = find_pairs(board)
+    rules_path = Path(board_path).with_suffix(".kicad_dru")
+    rules = rules_path.read_text(encoding="utf-8") if rules_path.exists() else None
+    reports = []
+    for footprint, design in designs:
+        spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
+        layout = _moved(build_layout(spec), footprint)
+        match = [bp for bp in pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
+        if match:
+            pair = max(match, key=lambda bp: bp.length)
+            layout = with_copper(layout, traces=board_traces(board, layout, pair))
+        estimate = estimate_layout(layout)
+        context = board_context(board, layout, match[0], estimate) if match else CheckContext(estimate=estimate)
+        report = run_checks(layout, context, estimate=estimate)
+        fill = RuleResult("kicad-fill", checked=1, unit="")
+        for risk in fill_risks(board.text, layout, spec.plane_net, rules):
+            fill.add("warning", risk, layout.cells[0].centre)
+        if not match:
+            fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
+                     f"{spec.pair_layer}", layout.cells[0].centre)
+        reports.append(replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,)))
+    return reports
+
+
+def pair_table(board: Board, min_run: float = 2.0) -> list[dict]:
+    """`ebglayout pairs`: every pair found, with the straight runs long enough for a filter."""
+    rows = []
+    for bp in find_pairs(board):
+        runs = [r for r in bp.straight_runs if r.length >= min_run]
+        rows.append({
+            "pair": bp.base, "nets": [bp.net_p, bp.net_n], "layer": bp.layer,
+            "width": round(bp.width, 6), "spacing": round(bp.spacing, 6),
+            "length": round(bp.length, 4), "length_p": round(bp.length_p, 4), "length_n": round(bp.length_n, 4),
+            "planes": list(bp.plane_layers),
+            "straight_runs": [{"start": [round(r.start[0], 4), round(r.start[1], 4)],
+                               "end": [round(r.end[0], 4), round(r.end[1], 4)], "length": round(r.length, 4)}
+                              for r in runs],
+            "warnings": list(bp.warnings),
+        })
+    return rows

@@ -1,0 +1,138 @@
+"""`place`, `check --board` and the action plugin on the sample board, judged by KiCad's own loader and zone fill."""
+from __future__ import annotations
+
+import json
+import shutil
+import sys
+
+import pytest
+
+from ebglayout.cli import main
+from ebglayout.kicad.board import read_board
+from ebglayout.kicad.workflow import check_board, placed_designs
+
+from conftest import ROOT, SAMPLES
+
+BOARD = SAMPLES / "hx2_hub.kicad_pcb"
+STRAIGHT = SAMPLES / "hx2_l0_tx_straight.toml"
+BRIDGED = SAMPLES / "hx2_l2_tx_bridged.toml"
+
+
+@pytest.fixture
+def board_copy(tmp_path):
+    path = tmp_path / "hub.kicad_pcb"
+    shutil.copyfile(BOARD, path)
+    return path
+
+
+def place_straight(board_copy, tmp_path, capsys):
+    out = tmp_path / "hub_filtered.kicad_pcb"
+    code = main(["place", str(board_copy), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N", "--spec", str(STRAIGHT),
+                 "--out", str(out), "--artifacts", str(tmp_path / "art")])
+    capsys.readouterr()
+    return code, out
+
+
+def test_pairs_lists_the_sample_pairs(capsys):
+    assert main(["pairs", str(BOARD), "--json"]) == 0
+    rows = json.loads(capsys.readouterr().out)
+    names = {r["pair"]: r for r in rows}
+    assert {"HX2_L0_TX", "HX2_L1_RX"} <= set(names)
+    l0 = names["HX2_L0_TX"]
+    assert l0["width"] == pytest.approx(0.12) and l0["spacing"] == pytest.approx(0.15, abs=1e-6)
+    assert l0["planes"] == ["In1.Cu"] and max(r["length"] for r in l0["straight_runs"]) > 15
+
+
+def test_place_keeps_input_and_every_other_byte(board_copy, tmp_path, capsys):
+    before = board_copy.read_bytes()
+    code, out = place_straight(board_copy, tmp_path, capsys)
+    assert code == 0
+    assert board_copy.read_bytes() == before
+    after = out.read_bytes()
+    cut = before.rstrip().rfind(b")")
+    assert after.startswith(before[:cut]) and after.endswith(before[cut:])
+    assert (tmp_path / "hub_filtered.kicad_dru").exists()
+    art = tmp_path / "art" / "HX2_L0_TX_hx2_l0_tx_straight"
+    report = json.loads((art / "report.json").read_text())
+    assert report["crossings"] == {"P": 6, "N": 6}
+    new = read_board(out)
+    assert len(new.footprints) == len(read_board(board_copy).footprints) + 1
+    # refusing to overwrite the input, and an existing output without --force
+    assert main(["place", str(board_copy), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N", "--spec", str(STRAIGHT),
+                 "--out", str(board_copy), "--force"]) == 2
+    assert "never writes over its input" in capsys.readouterr().err
+    assert place_straight(board_copy, tmp_path, capsys)[0] == 2
+
+
+def test_placed_board_fills_to_the_designed_slots(pcbnew, board_copy, tmp_path, capsys):
+    """KiCad loads the new board, finds the footprint, and its own fill leaves exactly the designed slots."""
+    from kicad_rig import fill_board, slot_report
+
+    code, out = place_straight(board_copy, tmp_path, capsys)
+    assert code == 0
+    filled, facts = fill_board(pcbnew, str(out), reference="FIL1")
+    assert facts["found"] == 1 and facts["locked"]
+    design = placed_designs(read_board(out))[0][1]
+    from ebglayout.layout import build_layout
+    from ebglayout.spec import spec_from_dict
+
+    layout = build_layout(spec_from_dict(design))
+    report = slot_report(layout, filled["In1.Cu"], "In1.Cu")
+    assert max(e[0] for e in report["width_errors"]) <= 0.005
+    assert max(e[0] for e in report["corner_errors"]) <= 0.005  # sharp corners: the 45-degree gap is slot * sqrt(2)
+    assert report["symdiff"] <= 0.01 * report["slot_area"]
+
+
+def test_check_board_finds_a_track_routed_through_the_cut_later(board_copy, tmp_path, capsys):
+    code, out = place_straight(board_copy, tmp_path, capsys)
+    reports = check_board(out)
+    assert len(reports) == 1 and not reports[0].errors
+    layout_report = json.loads((tmp_path / "art" / "HX2_L0_TX_hx2_l0_tx_straight" / "report.json").read_text())
+    cx, cy = layout_report["cells"][1]["centre"]
+    text = out.read_text()
+    net = read_board(out).nets.index("HX2_IRQ") if "HX2_IRQ" in read_board(out).nets else 0
+    track = (f'  (segment (start {cx} {cy - 4}) (end {cx} {cy + 4}) (width 0.15) (layer "F.Cu") (net {net}) '
+             '(tstamp 0b1e5d6a-0000-4000-8000-000000000001))\n')
+    end = text.rstrip().rfind(")")
+    edited = tmp_path / "hub_edited.kicad_pcb"
+    edited.write_text(text[:end] + track + text[end:])
+    shutil.copyfile(out.with_suffix(".kicad_dru"), edited.with_suffix(".kicad_dru"))
+    assert main(["check", "--board", str(edited)]) == 1
+    printed = capsys.readouterr().out
+    assert "ERROR   foreign-track: F.Cu track" in printed and "crosses a slot of In1.Cu" in printed
+
+
+def test_plan_places_many_pairs_in_one_write(board_copy, tmp_path, capsys, pcbnew):
+    plan = tmp_path / "plan.toml"
+    plan.write_text(f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\npair = ["HX2_L0_TX_P", "HX2_L0_TX_N"]\n\n'
+                    f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_L1*"\n')
+    out = tmp_path / "hub_plan.kicad_pcb"
+    assert main(["place", str(board_copy), "--plan", str(plan), "--out", str(out)]) == 0
+    capsys.readouterr()
+    board = pcbnew.LoadBoard(str(out))
+    refs = sorted(fp.GetReference() for fp in board.GetFootprints() if fp.GetReference().startswith("FIL"))
+    assert refs == ["FIL1", "FIL2"]
+    assert len(placed_designs(read_board(out))) == 2
+
+
+def test_action_plugin_gives_the_same_cut_as_place(pcbnew, board_copy, tmp_path, capsys):
+    """The plugin's action on a board loaded in pcbnew (headless) and `place` give the same filled plane."""
+    from kicad_rig import fill_board
+
+    sys.path.insert(0, str(ROOT))
+    try:
+        from kicad_plugin.plugin import place_under_selection
+    finally:
+        sys.path.remove(str(ROOT))
+    code, out = place_straight(board_copy, tmp_path, capsys)
+    assert code == 0
+    live = pcbnew.LoadBoard(str(board_copy))
+    track = next(t for t in live.GetTracks() if t.GetNetname() == "HX2_L0_TX_P")
+    summary = place_under_selection(live, str(STRAIGHT), tracks=[track])
+    assert summary["reference"] == "FIL1" and summary["errors"] == 0
+    via_plugin = tmp_path / "hub_plugin.kicad_pcb"
+    pcbnew.SaveBoard(str(via_plugin), live)
+    shutil.copyfile(board_copy.with_suffix(".kicad_dru"), via_plugin.with_suffix(".kicad_dru"))
+    a, _ = fill_board(pcbnew, str(out))
+    b, _ = fill_board(pcbnew, str(via_plugin))
+    assert a["In1.Cu"].copper.symmetric_difference(b["In1.Cu"].copper).area < 1e-6
