@@ -44,7 +44,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, default=Path("ebglayout-demo"), help="output folder (default ./ebglayout-demo)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png and report.json")
+    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png, .kicad_mod, .kicad_dru and report.json")
     p.add_argument("spec", type=Path)
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
@@ -121,6 +121,12 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print(f"ebglayout: error: {err.filename or ''}: {err.strerror or err}", file=sys.stderr)
         return 2
+    except Exception as err:  # a bug, not bad input: one line, the traceback only with --debug
+        if getattr(args, "debug", False):
+            raise
+        print(f"ebglayout: internal error: {err.__class__.__name__}: {err} (rerun with --debug for a traceback "
+              "and report it)", file=sys.stderr)
+        return 3
 
 
 def _demo(args) -> int:
@@ -224,6 +230,8 @@ def _place(args) -> int:
         print(p.result.checks.format_table())
     for risk in placement.risks:
         print(f"  KiCad fill: {risk}")
+    for note in placement.notes:
+        print(f"  note: {note}")
     print(f"wrote {args.out} and {args.out.with_suffix('.kicad_dru').name} with {len(placement.filters)} filter(s); "
           f"{args.board} is unchanged. Refill zones in KiCad after opening it.")
     return 1 if any(p.result.checks.errors for p in placement.filters) else 0

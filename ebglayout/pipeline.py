@@ -1,4 +1,9 @@
-"""The one pipeline the CLI and the KiCad plugin share: spec -> layout -> checks -> estimate -> files."""
+"""The one pipeline the CLI and the KiCad plugin share: spec -> layout -> checks -> estimate -> files.
+
+Files of one filter: <name>.dxf, .gds, .svg, .png, .kicad_mod (KiCad 6 footprint,
+loads in 6 to 9), .kicad_dru (the custom rule that makes KiCad's fill exact) and
+report.json.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -10,7 +15,7 @@ from .outputs import StagedOutputs
 from .report import report_data, to_json_text
 from .spec import FilterSpec
 
-OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png")
+OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png", ".kicad_mod", ".kicad_dru")
 
 
 @dataclass(frozen=True)
@@ -43,6 +48,8 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
     from .export.dxf import write_dxf
     from .export.gds import write_gds
     from .export.preview import write_preview
+    from .kicad.footprint import footprint_text
+    from .kicad.rules import rules_text
 
     name = result.name
     findings = result.checks.findings
@@ -50,6 +57,8 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
     write_dxf(result.layout, staged.path(name + ".dxf"), findings=findings)
     write_gds(result.layout, staged.path(name + ".gds"))
     write_preview(result.layout, staged.path(name + ".svg"), staged.path(name + ".png"), findings=findings, notch=notch)
+    staged.write_text(name + ".kicad_mod", footprint_text(result.layout))
+    staged.write_text(name + ".kicad_dru", rules_text(result.layout))
     staged.write_text(report_name, to_json_text(report_data(result.layout, result.checks, result.estimate)))
 
 

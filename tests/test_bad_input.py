@@ -101,3 +101,83 @@ def test_missing_spec_file_and_unreadable_folder(tmp_path, capsys):
     assert "cannot be read" in capsys.readouterr().err
     assert main(["check", str(tmp_path)]) == 2
     assert "cannot be read" in capsys.readouterr().err
+
+
+# ---- boards and plans ----
+
+
+def sample_board_text() -> str:
+    from conftest import SAMPLES
+
+    return (SAMPLES / "hx2_hub.kicad_pcb").read_text(encoding="utf-8")
+
+
+def _board_cases():
+    text = sample_board_text()
+    half = text[: len(text) // 2]
+    end = text.rstrip().rfind(")")
+    return [
+        ("truncated board", half, "line"),
+        ("unbalanced close", text[:end] + ")\n)" + text[end + 1:], "line"),
+        ("deep nesting", text[:end] + "(a " * 5000 + ")" * 5000 + text[end:], "nest"),
+        ("empty board", "", "empty"),
+        ("binary board", "\x00\x01\x02\x03PK", "line"),
+        ("spec given as board", GOOD, "line"),
+        ("kicad 5 board", text.replace("(version 20211014)", "(version 20171130)", 1), "20171130"),
+    ]
+
+
+BOARD_CASES = _board_cases()
+
+
+@pytest.mark.parametrize("text, words", [(t, w) for _, t, w in BOARD_CASES], ids=[n for n, _, _ in BOARD_CASES])
+@pytest.mark.parametrize("command", ["pairs", "place", "check"])
+def test_bad_board_exits_2_naming_the_place(tmp_path, capsys, text, words, command):
+    board = tmp_path / "bad.kicad_pcb"
+    board.write_bytes(text.encode("utf-8", "surrogatepass"))
+    out = tmp_path / "new.kicad_pcb"
+    from conftest import SAMPLE_SPECS
+
+    argv = {"pairs": ["pairs", str(board)],
+            "place": ["place", str(board), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N", "--spec", str(SAMPLE_SPECS[0]),
+                      "--out", str(out)],
+            "check": ["check", "--board", str(board)]}[command]
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("ebglayout: error: ") and "\n" not in err and "Traceback" not in err, err
+    assert "bad.kicad_pcb" in err and words.lower() in err.lower(), err
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("argv_tail, words", [
+    (["--pair", "HX2_NOPE_P", "HX2_NOPE_N"], "is not a routed differential pair"),
+    (["--pair", "HX2_L0_TX_P", "HX2_L1_RX_N"], "is not a routed differential pair"),
+    ([], "needs --pair NET_P NET_N with --spec SPEC, or --plan PLAN"),
+])
+def test_place_with_bad_pair_choice(tmp_path, capsys, argv_tail, words):
+    from conftest import SAMPLE_SPECS, SAMPLES
+
+    out = tmp_path / "new.kicad_pcb"
+    spec = ["--spec", str(SAMPLE_SPECS[0])] if argv_tail else []
+    assert main(["place", str(SAMPLES / "hx2_hub.kicad_pcb"), *argv_tail, *spec, "--out", str(out)]) == 2
+    assert words in capsys.readouterr().err
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("plan, words", [
+    ("[[filter]]\nspec = \"nope.toml\"\npair = [\"A_P\", \"A_N\"]\n", "cannot be read"),
+    ("[[filter]]\nspec = \"s.toml\"\n", "give exactly one of pair"),
+    ("[[filter]]\nspec = \"s.toml\"\npair = [\"A_P\"]\n", "must be two net names"),
+    ("title = \"x\"\n", "must hold one or more [[filter]] tables"),
+    ("[[filter]]\nspec = \"s.toml\"\nmatch = \"ZZZ*\"\n", "matches no differential pair"),
+])
+def test_bad_plans(tmp_path, capsys, plan, words):
+    from conftest import SAMPLE_SPECS, SAMPLES
+
+    (tmp_path / "s.toml").write_text(SAMPLE_SPECS[0].read_text())
+    path = tmp_path / "plan.toml"
+    path.write_text(plan)
+    out = tmp_path / "new.kicad_pcb"
+    assert main(["place", str(SAMPLES / "hx2_hub.kicad_pcb"), "--plan", str(path), "--out", str(out)]) == 2
+    assert words in capsys.readouterr().err
+    assert not out.exists()

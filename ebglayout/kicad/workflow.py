@@ -64,6 +64,8 @@ class Placement:
     board_text: str
     rules_text: str
     risks: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    """What the reader noticed about the board (missing stack-up, unknown items) and where defaults came from."""
 
 
 def load_spec_dict(path: str | Path) -> dict:
@@ -221,7 +223,14 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
     rules = merge_rules(existing_rules, rules_text(*(p.result.layout for p in placed)))
     risks = [f"{p.reference} {p.result.name}: {risk}" for p in placed
              for risk in fill_risks(new_text, p.result.layout, p.result.layout.spec.plane_net, rules)]
-    return Placement(placed, new_text, rules, risks)
+    notes = list(board.warnings)
+    for p in placed:
+        notes += [f"{p.pair.base}: {w}" for w in p.pair.warnings]
+        if board.stackup is None:
+            spec = p.result.layout.spec
+            notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
+                         f"stackup.h = {spec.h:g} mm")
+    return Placement(placed, new_text, rules, risks, notes)
 
 
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
