@@ -6,6 +6,7 @@ import os
 import shutil
 import subprocess
 import sys
+from pathlib import Path
 from xml.etree import ElementTree as ET
 
 import pytest
@@ -138,7 +139,8 @@ def test_module_entry_point_and_help_need_no_exporters():
 
 
 def test_console_script_is_installed():
-    exe = shutil.which("ebglayout")
+    beside = Path(sys.executable).parent / "ebglayout"
+    exe = str(beside) if beside.exists() else shutil.which("ebglayout")
     if exe is None:
         pytest.skip("ebglayout is not installed as a command in this environment (tests run from the source tree)")
     out = subprocess.run([exe, "--version"], capture_output=True, text=True, check=True).stdout

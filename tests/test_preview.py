@@ -1,4 +1,4 @@
-"""SVG/PNG preview, read back with Python's XML parser and matplotlib's PNG reader, and the write_all bundle."""
+"""SVG/PNG preview, read back with Python's XML parser and matplotlib's PNG reader."""
 from __future__ import annotations
 
 import xml.etree.ElementTree as ET
@@ -8,7 +8,7 @@ import matplotlib.image as mpimg
 import pytest
 
 from ebglayout.checks import Finding
-from ebglayout.export import CAUTION, write_all
+from ebglayout.export import CAUTION
 from ebglayout.export.preview import DPI, FIGSIZE_IN, write_preview
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
@@ -71,14 +71,3 @@ def test_byte_identical_writes(sample_layouts, tmp_path):
         assert one.read_bytes() == two.read_bytes(), one.suffix
     assert b"Date" not in first[0].read_bytes() and b"Software" not in first[1].read_bytes()
     assert matplotlib.rcParams["svg.hashsalt"] == salt_before
-
-
-def test_write_all_bundle(sample_layouts, tmp_path):
-    """write_all writes the four files named after the filter, and nothing else (no report, no temp files)."""
-    layout = sample_layouts["hx2_l2_tx_bridged"]
-    out = tmp_path / "out"
-    paths = write_all(layout, out, findings=[Finding("TEST-X", "warning", "x", (15.0, 6.0))], notch=NOTCH)
-    assert sorted(paths) == ["dxf", "gds", "png", "svg"]
-    assert sorted(p.name for p in out.iterdir()) == sorted(f"{layout.spec.name}.{ext}" for ext in paths)
-    assert all(p.stat().st_size > 0 and p.parent == out for p in paths.values())
-    assert "TEST-X" in svg_texts(paths["svg"])

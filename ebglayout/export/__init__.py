@@ -13,7 +13,7 @@ import os
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator, Sequence
+from typing import Iterator
 
 from .. import CAUTION
 
@@ -66,24 +66,4 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
             tmp_path.unlink()
 
 
-def write_all(layout, out_dir: str | Path, findings: Sequence = (), notch: dict | None = None) -> dict[str, Path]:
-    """Write ``<name>.dxf``, ``<name>.gds``, ``<name>.svg`` and ``<name>.png`` into ``out_dir``.
-
-    Returns extension -> path.  ``findings`` (checks.Finding) are marked in the
-    DXF and the preview; ``notch`` is the optional per-cell notch summary the
-    preview plots (see ``preview.write_preview``).
-    """
-    from .dxf import write_dxf
-    from .gds import write_gds
-    from .preview import write_preview
-
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    paths = {ext: out_dir / f"{layout.spec.name}.{ext}" for ext in EXTENSIONS}
-    write_dxf(layout, paths["dxf"], findings)
-    write_gds(layout, paths["gds"])
-    write_preview(layout, paths["svg"], paths["png"], findings, notch)
-    return paths
-
-
-__all__ = ["CAUTION", "EXTENSIONS", "CellFrame", "atomic_path", "write_all"]
+__all__ = ["CAUTION", "EXTENSIONS", "CellFrame", "atomic_path"]

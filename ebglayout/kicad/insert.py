@@ -15,6 +15,7 @@ from ..errors import BoardError
 from ..layout import Layout
 from .footprint import DIALECTS, KICAD6, KICAD9, area_name
 from .rules import RULE_NAME, has_rule
+from .sexpr import error_in_text
 
 _TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[()]|[^\s()"]+', re.S)
 _OPENING_TOLERANCE = 0.0005
@@ -43,10 +44,10 @@ def board_version(board_text: str, source: str = "<board>") -> int:
     start, _ = _root_span(board_text, source)
     m = re.compile(r"\(kicad_pcb\s*\(version\s+(\d+)\)").match(board_text, start)
     if not m:
-        raise _position(board_text, source, start, "board has no (version N) right after '(kicad_pcb'")
+        raise error_in_text(source, board_text, start, "board has no (version N) right after '(kicad_pcb'")
     version = int(m.group(1))
     if version < KICAD6 or version > KICAD9:
-        raise _position(board_text, source, m.start(1), f"board format {version} is not supported "
+        raise error_in_text(source, board_text, m.start(1), f"board format {version} is not supported "
                         f"(allowed: {KICAD6} to {KICAD9}, KiCad 6 to 9); place the .kicad_mod footprint by hand")
     return max(v for v in DIALECTS if v <= version)
 
@@ -190,14 +191,6 @@ def _quote(text: str) -> str:
     return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
 
 
-def _position(text: str, source: str, pos: int, what: str) -> BoardError:
-    line = text.count("\n", 0, pos) + 1
-    col = pos - (text.rfind("\n", 0, pos) + 1) + 1
-    err = BoardError(f"{source}: line {line}, column {col}: {what}")
-    err.file, err.line, err.column = source, line, col
-    return err
-
-
 _STRUCTURE = re.compile(r'"(?:[^"\\]|\\.)*"|"|[()]', re.S)
 
 
@@ -212,12 +205,12 @@ def _walk(text: str, source: str):
         elif tok == ")":
             depth -= 1
             if depth < 0:
-                raise _position(text, source, m.start(), "unbalanced ')'")
+                raise error_in_text(source, text, m.start(), "unbalanced ')'")
             yield m.start(), depth, tok
         elif tok == '"':
-            raise _position(text, source, m.start(), "unterminated string")
+            raise error_in_text(source, text, m.start(), "unterminated string")
     if depth:
-        raise _position(text, source, len(text), f"{depth} unclosed '('")
+        raise error_in_text(source, text, len(text), f"{depth} unclosed '('")
 
 
 def _root_span(text: str, source: str) -> tuple[int, int]:
@@ -225,15 +218,15 @@ def _root_span(text: str, source: str) -> tuple[int, int]:
     stripped = text.lstrip("\ufeff \t\r\n")
     start = len(text) - len(stripped)
     if not stripped.startswith("(kicad_pcb"):
-        raise _position(text, source, start, "not a KiCad board (expected '(kicad_pcb' at the start)")
+        raise error_in_text(source, text, start, "not a KiCad board (expected '(kicad_pcb' at the start)")
     close = None
     for pos, depth, ch in _walk(text, source):
         if ch == ")" and depth == 0:
             if close is not None:
-                raise _position(text, source, pos, "text after the board's closing parenthesis")
+                raise error_in_text(source, text, pos, "text after the board's closing parenthesis")
             close = pos
     if text[close + 1:].strip():
-        raise _position(text, source, close + 1, "text after the board's closing parenthesis")
+        raise error_in_text(source, text, close + 1, "text after the board's closing parenthesis")
     return start, close
 
 

@@ -11,7 +11,8 @@ from __future__ import annotations
 
 import re
 
-from ..errors import BoardError, SpecError
+from ..errors import SpecError
+from .sexpr import error_in_text
 
 RULE_NAME = "ebglayout_plane_cut"
 AREA_PREFIX = "EBGCUT_"
@@ -89,7 +90,7 @@ def _forms(text: str, source: str):
             while i < n and text[i] != '"':
                 i += 2 if text[i] == "\\" else 1
             if i >= n:
-                raise _error(text, source, i, "unterminated string")
+                raise error_in_text(source, text, i, "unterminated string")
         elif ch == "#" and not text[text.rfind("\n", 0, i) + 1:i].strip():
             while i < n and text[i] != "\n":
                 i += 1
@@ -101,7 +102,7 @@ def _forms(text: str, source: str):
         elif ch == ")":
             depth -= 1
             if depth < 0:
-                raise _error(text, source, i, "unbalanced ')'")
+                raise error_in_text(source, text, i, "unbalanced ')'")
             if depth == 0:
                 form = text[start:i + 1]
                 m = re.match(r'\(\s*([A-Za-z_]+)\s*(?:"((?:[^"\\]|\\.)*)"|([^\s()"]+))?', form)
@@ -110,13 +111,7 @@ def _forms(text: str, source: str):
                 out.append((head, name, form, start, i + 1))
         i += 1
     if depth:
-        raise _error(text, source, start, "unclosed '('")
+        raise error_in_text(source, text, start, "unclosed '('")
     return out
 
 
-def _error(text: str, source: str, pos: int, what: str) -> BoardError:
-    line = text.count("\n", 0, pos) + 1
-    col = pos - (text.rfind("\n", 0, pos) + 1) + 1
-    err = BoardError(f"{source}: line {line}, column {col}: {what}")
-    err.file, err.line, err.column = source, line, col
-    return err

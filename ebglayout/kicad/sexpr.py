@@ -59,6 +59,11 @@ def error_at(name: str, data: bytes, offset: int, what: str) -> BoardError:
     return err
 
 
+def error_in_text(name: str, text: str, index: int, what: str) -> BoardError:
+    """``error_at`` for a character index into decoded text."""
+    return error_at(name, text.encode("utf-8"), len(text[:index].encode("utf-8")), what)
+
+
 def unescape(body: str) -> str:
     """Text of a quoted string without its quotes, escapes resolved."""
     if "\\" not in body:
