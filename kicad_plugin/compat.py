@@ -48,3 +48,9 @@ def fill_all_zones(board) -> None:
 def refresh() -> None:
     if hasattr(pcbnew, "Refresh"):
         pcbnew.Refresh()
+
+
+def set_zone_priority(zone, priority: int) -> None:
+    """KiCad 6 and 7: SetPriority; later versions: SetAssignedPriority (from memory of the API changes)."""
+    setter = getattr(zone, "SetAssignedPriority", None) or zone.SetPriority
+    setter(priority)

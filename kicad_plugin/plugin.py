@@ -74,7 +74,7 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
     for zone in compat.footprint_zones(fp):
         if not zone.GetIsRuleArea() and net_code is not None:
             zone.SetNetCode(net_code)
-            zone.SetPriority(priority)
+            compat.set_zone_priority(zone, priority)
     _write_rules(board, placement.rules_text)
     compat.fill_all_zones(board)
     compat.refresh()

@@ -103,10 +103,26 @@ def board_text(rig: Rig) -> str:
         + "".join(zones) + "".join(rig.extra) + ")\n")
 
 
+def orientation_degrees(footprint) -> float:
+    """Footprint rotation in degrees: KiCad 6 returns tenths of a degree, 7+ an EDA_ANGLE (feature test, not version)."""
+    if hasattr(footprint, "GetOrientationDegrees"):
+        return float(footprint.GetOrientationDegrees())
+    value = footprint.GetOrientation()
+    return value.AsDegrees() if hasattr(value, "AsDegrees") else value / 10.0
+
+
+def is_polygon_graphic(pcbnew, item) -> bool:
+    """A footprint polygon: class MGRAPHIC in KiCad 6, PCB_SHAPE from 8 (from memory)."""
+    return item.GetClass() in ("MGRAPHIC", "PCB_SHAPE", "FP_SHAPE") and item.GetShape() == pcbnew.SHAPE_T_POLY
+
+
 def poly_set_to_shapely(pcbnew, poly_set, transform=None):
     """SHAPE_POLY_SET (nm) -> shapely geometry in mm, after unfracturing into outlines with holes."""
     ps = pcbnew.SHAPE_POLY_SET(poly_set)
-    ps.Unfracture(pcbnew.SHAPE_POLY_SET.PM_FAST)
+    try:
+        ps.Unfracture(pcbnew.SHAPE_POLY_SET.PM_FAST)
+    except (AttributeError, TypeError):  # KiCad 8+: Unfracture() takes no mode (from memory)
+        ps.Unfracture()
 
     def ring(chain):
         pts = [(chain.CPoint(k).x / 1e6, chain.CPoint(k).y / 1e6) for k in range(chain.PointCount())]
@@ -167,7 +183,7 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
         graphics = []
         for fp in board.GetFootprints():
             pos = fp.GetPosition()
-            angle = math.radians(fp.GetOrientation() / 10.0)
+            angle = math.radians(orientation_degrees(fp))
             c, s = math.cos(angle), math.sin(angle)
             px, py = pos.x / 1e6, pos.y / 1e6
 
@@ -175,7 +191,7 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
                 return (px + p[0] * c + p[1] * s, py - p[0] * s + p[1] * c)
 
             for item in fp.GraphicalItems():
-                polygon = item.GetClass() == "MGRAPHIC" and item.GetShape() == pcbnew.SHAPE_T_POLY
+                polygon = is_polygon_graphic(pcbnew, item)
                 if item.GetLayer() == layer_id and polygon:
                     shape = poly_set_to_shapely(pcbnew, item.GetPolyShape(), to_board)
                     half = item.GetWidth() / 2e6

@@ -18,7 +18,7 @@ from ebglayout.kicad.footprint import (BRIDGE_ZONE_MIN_WIDTH, KICAD6, KICAD7, KI
                                        footprint_origin, footprint_text, hole_free)
 from ebglayout.kicad.insert import board_version, insert_footprints, plane_net, set_plane_net
 from ebglayout.kicad.rules import RULE_NAME, has_rule, merge_rules, rules_text
-from kicad_rig import Rig, board_text, poly_set_to_shapely
+from kicad_rig import Rig, board_text, is_polygon_graphic, poly_set_to_shapely
 
 DIALECTS = (KICAD6, KICAD7, KICAD8, KICAD9)
 FLAGS = ("(tracks allowed)", "(vias allowed)", "(pads allowed)", "(copperpour not_allowed)", "(footprints allowed)")
@@ -147,10 +147,10 @@ def test_kicad6_loads_the_library_footprint(pcbnew, sample_layouts, tmp_path):
         cut = layout.cuts[0]
         want = cut.slot if layout.spec.style == "bridged" else cut.outline
         assert read.symmetric_difference(shapely.affinity.translate(want, -ox, -oy)).area < 1e-9
-        polys = [g for g in fp.GraphicalItems() if g.GetClass() == "MGRAPHIC" and g.GetShape() == pcbnew.SHAPE_T_POLY]
+        polys = [g for g in fp.GraphicalItems() if is_polygon_graphic(pcbnew, g)]
         assert len(polys) == (0 if layout.spec.style == "bridged" else sum(len(c.patch.geoms) for c in layout.cuts))
         assert all(p.GetWidth() == 0 and p.IsFilled() for p in polys)
-        courtyard = [g for g in fp.GraphicalItems() if g.GetClass() == "MGRAPHIC" and g.GetLayer() == pcbnew.F_CrtYd]
+        courtyard = [g for g in fp.GraphicalItems() if g.GetClass() in ("MGRAPHIC", "PCB_SHAPE", "FP_SHAPE") and g.GetLayer() == pcbnew.F_CrtYd]
         assert len(courtyard) == 1
 
 
