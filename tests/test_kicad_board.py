@@ -83,7 +83,7 @@ def pcbnew_view(k, path: Path) -> dict:
                  k.ISLAND_REMOVAL_MODE_AREA: "area"}
         view["zones"].append({
             "name": z.GetZoneName(), "layers": layers, "net": z.GetNetname(), "footprint": ref,
-            "area": round(outline.Area() / 1e12, 6), "holes": outline.HoleCount(0), "priority": z.GetPriority(),
+            "area": round(outline.Area() / 1e12, 6), "holes": outline.HoleCount(0), "priority": (getattr(z, "GetAssignedPriority", None) or z.GetPriority)(),
             "min_thickness": z.GetMinThickness(), "clearance": z.GetLocalClearance(), "keepout": keepout,
             "island": modes[z.GetIslandRemovalMode()], "filled": round(filled, 6)})
     outline = k.SHAPE_POLY_SET()
