@@ -304,22 +304,30 @@ def _mirror(geometry, centre, heading: float):
 
 
 def cell_overlap(layout: Layout, ctx: CheckContext) -> RuleResult:
+    """Every pair of cells is judged, but only pairs whose patches touch (an STRtree join) or that
+    are neighbours in the row can give a finding, so only those are measured, in pair order."""
     spec = layout.spec
     r = RuleResult("cell-overlap", unit="mm", limit=spec.web)
     cells = layout.cells
-    for i, a in enumerate(cells):
-        for b in cells[i + 1:]:
-            r.checked += 1
-            if a.patch.intersects(b.patch) and a.patch.intersection(b.patch).area > 1e-9:
-                r.add("error", f"cells {a.index} and {b.index} overlap", a.centre)
-                continue
-            gap = a.outer.distance(b.outer)
-            adjacent = abs(b.index - a.index) == 1
-            if spec.web > 0 and adjacent:
-                r.see(gap)
-                if gap < spec.web - 1e-6:
-                    r.add("error", f"cells {a.index} and {b.index}: web {gap:.4g} mm where cut.web = {spec.web:g}; "
-                          "their slots merge", b.centre, gap, spec.web)
+    r.checked = len(cells) * (len(cells) - 1) // 2
+    patches = [c.patch for c in cells]
+    pairs = {(i, j) for i, j in shapely.STRtree(patches).query(patches, predicate="intersects").T.tolist() if i < j}
+    positions: dict[int, list[int]] = {}
+    for k, c in enumerate(cells):
+        positions.setdefault(c.index, []).append(k)
+    pairs |= {(min(k, m), max(k, m)) for k, c in enumerate(cells) for m in positions.get(c.index + 1, ())}
+    for i, j in sorted(pairs):
+        a, b = cells[i], cells[j]
+        if a.patch.intersects(b.patch) and a.patch.intersection(b.patch).area > 1e-9:
+            r.add("error", f"cells {a.index} and {b.index} overlap", a.centre)
+            continue
+        gap = a.outer.distance(b.outer)
+        adjacent = abs(b.index - a.index) == 1
+        if spec.web > 0 and adjacent:
+            r.see(gap)
+            if gap < spec.web - 1e-6:
+                r.add("error", f"cells {a.index} and {b.index}: web {gap:.4g} mm where cut.web = {spec.web:g}; "
+                      "their slots merge", b.centre, gap, spec.web)
     return r
 
 

@@ -39,56 +39,142 @@ def _edges(polygon) -> np.ndarray:
     return np.concatenate(out)
 
 
+PAIR_BLOCK = 1 << 20
+"""Edge pairs measured per numpy block: bounds the memory of a polygon with thousands of edges."""
+
+
 def facing_widths(polygon) -> list[Narrow]:
     """Every facing-edge width of one polygon (one entry per facing edge pair, smallest first)."""
-    e = _edges(polygon)
-    a, b = e[:, 0], e[:, 1]
+    return _narrows([polygon])[0]
+
+
+def _narrows(polygons: list, below: float | None = None) -> list[list[Narrow]]:
+    """Facing-edge widths of each polygon, all of them or only those under ``below``, smallest first.
+
+    With ``below``, only edge pairs whose boxes come closer than ``below`` are
+    measured (one STRtree join over the edges of all the polygons): a width is
+    the distance between two points of the two edges, so a pair farther apart
+    cannot be narrower.  Pairs are measured in numpy blocks; for one pair the
+    arithmetic is that of the edge-by-edge rule.
+    """
+    if below is not None and below <= 1e-9:
+        return [[] for _ in polygons]
+    a, b, owner = [], [], []
+    for k, polygon in enumerate(polygons):
+        e = _edges(polygon)
+        keep = np.linalg.norm(e[:, 1] - e[:, 0], axis=1) > 1e-9
+        a.append(e[keep, 0])
+        b.append(e[keep, 1])
+        owner.append(np.full(int(keep.sum()), k))
+    a, b, owner = np.concatenate(a), np.concatenate(b), np.concatenate(owner)
     d = b - a
     length = np.linalg.norm(d, axis=1)
-    keep = length > 1e-9
-    a, b, d, length = a[keep], b[keep], d[keep], length[keep]
     t = d / length[:, None]
     inward = np.column_stack([-t[:, 1], t[:, 0]])
-    grown = polygon.buffer(1e-7, join_style="mitre")
-    shapely.prepare(grown)
-    found: list[Narrow] = []
-    for i in range(len(a)):
-        facing = (inward @ inward[i]) < -FACING_COS
-        if not facing.any():
-            continue
-        js = np.nonzero(facing)[0]
-        pa, pb = a[js] - a[i], b[js] - a[i]
-        ta, tb = pa @ t[i], pb @ t[i]
-        na, nb = pa @ inward[i], pb @ inward[i]
-        lo = np.maximum(np.minimum(ta, tb), 0.0)
-        hi = np.minimum(np.maximum(ta, tb), length[i])
-        overlap = hi - lo > 1e-9
-        for k in np.nonzero(overlap)[0]:
-            # Perpendicular distance of edge j above edge i at the ends of the common projection.
-            span = tb[k] - ta[k]
-            dist = []
-            for s in (lo[k], hi[k]):
-                w = 0.5 if abs(span) < 1e-12 else (s - ta[k]) / span
-                dist.append(na[k] + w * (nb[k] - na[k]))
-            width = min(dist)
-            if width <= 1e-9:
-                continue
-            s_mid = (lo[k] + hi[k]) / 2
-            mid = a[i] + t[i] * s_mid + inward[i] * width / 2
-            if not grown.contains(shapely.points(mid)):
-                continue
-            found.append(Narrow(float(width), (round(float(mid[0]), 6), round(float(mid[1]), 6))))
-    found.sort(key=lambda n: (round(n.width, 9), n.at))
-    return found
+    if below is None:
+        starts = np.searchsorted(owner, np.arange(len(polygons) + 1))
+        blocks = (pair for k in range(len(polygons)) for pair in _all_pairs(int(starts[k]), int(starts[k + 1])))
+    else:
+        lo, hi = np.minimum(a, b), np.maximum(a, b)
+        tree = shapely.STRtree(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
+        i, j = tree.query(shapely.box(lo[:, 0] - below, lo[:, 1] - below, hi[:, 0] + below, hi[:, 1] + below))
+        same = owner[i] == owner[j]
+        i, j = i[same], j[same]
+        order = np.lexsort((j, i))
+        i, j = i[order], j[order]
+        blocks = ((i[k:k + PAIR_BLOCK], j[k:k + PAIR_BLOCK]) for k in range(0, len(i), PAIR_BLOCK))
+    found, mids, whose = [], [], []
+    for i, j in blocks:
+        width, mid, i = _measure(a, b, t, inward, length, i, j)
+        if below is not None:
+            near = width < below
+            width, mid, i = width[near], mid[near], i[near]
+        found.append(width)
+        mids.append(mid)
+        whose.append(owner[i])
+    out: list[list[Narrow]] = [[] for _ in polygons]
+    if not found:
+        return out
+    width, mid, whose = np.concatenate(found), np.concatenate(mids), np.concatenate(whose)
+    if not len(width):
+        return out
+    grown = shapely.buffer(np.asarray(polygons, dtype=object), 1e-7, join_style="mitre")
+    inside = shapely.contains_xy(grown[whose], mid[:, 0], mid[:, 1])
+    for k, w, (x, y) in zip(whose[inside].tolist(), width[inside].tolist(), mid[inside].tolist()):
+        out[k].append(Narrow(w, (round(x, 6), round(y, 6))))
+    for narrows in out:
+        narrows.sort(key=lambda n: (round(n.width, 9), n.at))
+    return out
+
+
+def _all_pairs(first: int, stop: int):
+    """Every (i, j) with both in [first, stop), row by row, in blocks of at most PAIR_BLOCK pairs."""
+    n = stop - first
+    rows = max(1, PAIR_BLOCK // max(n, 1))
+    for r in range(first, stop, rows):
+        count = min(rows, stop - r)
+        yield np.repeat(np.arange(r, r + count), n), np.tile(np.arange(first, stop), count)
+
+
+def _measure(a, b, t, inward, length, i, j) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Width, midpoint and first edge of the pairs (i, j) that face each other and overlap in projection.
+
+    Edge j seen from edge i: the perpendicular distance above edge i at the two
+    ends of their common projection; the width is the smaller, the midpoint lies
+    halfway up from the middle of the common projection.  Pair order is kept.
+    """
+    facing = (inward[j, 0] * inward[i, 0] + inward[j, 1] * inward[i, 1]) < -FACING_COS
+    i, j = i[facing], j[facing]
+    pa, pb = a[j] - a[i], b[j] - a[i]
+    ta = pa[:, 0] * t[i, 0] + pa[:, 1] * t[i, 1]
+    tb = pb[:, 0] * t[i, 0] + pb[:, 1] * t[i, 1]
+    na = pa[:, 0] * inward[i, 0] + pa[:, 1] * inward[i, 1]
+    nb = pb[:, 0] * inward[i, 0] + pb[:, 1] * inward[i, 1]
+    lo = np.maximum(np.minimum(ta, tb), 0.0)
+    hi = np.minimum(np.maximum(ta, tb), length[i])
+    overlap = hi - lo > 1e-9
+    i, ta, tb, na, nb, lo, hi = i[overlap], ta[overlap], tb[overlap], na[overlap], nb[overlap], lo[overlap], hi[overlap]
+    span = tb - ta
+    flat = np.abs(span) < 1e-12
+    safe = np.where(flat, 1.0, span)
+    w_lo = np.where(flat, 0.5, (lo - ta) / safe)
+    w_hi = np.where(flat, 0.5, (hi - ta) / safe)
+    width = np.minimum(na + w_lo * (nb - na), na + w_hi * (nb - na))
+    positive = width > 1e-9
+    i, lo, hi, width = i[positive], lo[positive], hi[positive], width[positive]
+    mid = a[i] + t[i] * ((lo + hi) / 2)[:, None] + inward[i] * (width / 2)[:, None]
+    return width, mid, i
 
 
 def min_width(geometry) -> Narrow | None:
-    """The narrowest place of a (multi)polygon, or None if it has no facing edges."""
+    """The narrowest place of a (multi)polygon, or None if it has no facing edges.
+
+    Searched with a growing distance bound (1 mm, doubled for the polygons where
+    nothing narrower was found, until the bound spans the polygon), so a polygon
+    of thousands of edges costs its near edge pairs, not all of them.
+    """
+    polys = list(getattr(geometry, "geoms", [geometry]))
+    if not polys:
+        return None
+    spans = [2 * float(np.hypot(x1 - x0, y1 - y0)) + 1.0 for x0, y0, x1, y1 in (p.bounds for p in polys)]
+    smallest: list[Narrow | None] = [None] * len(polys)
+    todo, bound = list(range(len(polys))), 1.0
+    while todo:
+        near = [k for k in todo if bound < spans[k]]
+        results = dict(zip(near, _narrows([polys[k] for k in near], below=bound))) if near else {}
+        rest = [k for k in todo if k not in results]
+        results.update(zip(rest, _narrows([polys[k] for k in rest])) if rest else ())
+        todo = []
+        for k, widths in results.items():
+            if widths and (k in rest or widths[0].width < bound - 1e-6):
+                smallest[k] = widths[0]
+            elif k not in rest:
+                todo.append(k)
+        bound *= 2
     best = None
-    for poly in getattr(geometry, "geoms", [geometry]):
-        widths = facing_widths(poly)
-        if widths and (best is None or widths[0].width < best.width):
-            best = widths[0]
+    for narrow in smallest:
+        if narrow is not None and (best is None or narrow.width < best.width):
+            best = narrow
     return best
 
 
@@ -96,11 +182,11 @@ def narrower_than(geometry, limit: float, tolerance: float = 1e-6) -> list[Narro
     """Places narrower than ``limit`` (minus a grid tolerance), one per distinct location."""
     out: list[Narrow] = []
     seen: set[tuple[float, float]] = set()
-    for poly in getattr(geometry, "geoms", [geometry]):
-        for n in facing_widths(poly):
-            if n.width < limit - tolerance:
-                key = (round(n.at[0], 3), round(n.at[1], 3))
-                if key not in seen:
-                    seen.add(key)
-                    out.append(n)
+    polys = list(getattr(geometry, "geoms", [geometry]))
+    for narrows in (_narrows(polys, below=limit - tolerance) if polys else []):
+        for n in narrows:
+            key = (round(n.at[0], 3), round(n.at[1], 3))
+            if key not in seen:
+                seen.add(key)
+                out.append(n)
     return out

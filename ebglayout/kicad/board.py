@@ -31,7 +31,7 @@ from shapely.geometry import LineString, MultiPolygon, Polygon
 from ..errors import BoardError
 from ..path import piece_points
 from ..spec import Arc
-from .sexpr import Quoted, Structure, error_at, scan, unescape
+from .sexpr import Quoted, Structure, _heads, error_at, scan, unescape
 
 VERSIONS = {20211014: "6.0", 20221018: "7.0", 20240108: "8.0", 20241229: "9.0"}
 """Version stamps of the major releases (KiCad's own version history; 10.0 files carry 2026xxxx)."""
@@ -259,6 +259,69 @@ class Footprint:
         return _to_board(self.at, self.rotation, x, y)
 
 
+class BoxIndex:
+    """Axis-aligned boxes (lo, hi: (n, 2)) on a uniform grid, for window queries without a pass over every box.
+
+    Each box is filed under the grid cell of its lower-left corner; the cell is as
+    large as 99 % of the boxes, so a box reaches at most one cell beyond its own and
+    a window query reads one run of the sorted cell keys per grid column it spans.
+    The few larger boxes are always tested.  Build: one sort; query: numpy only,
+    costing what lies near the window, not what is on the board.
+    """
+
+    def __init__(self, lo: np.ndarray, hi: np.ndarray):
+        self.lo, self.hi = np.asarray(lo, dtype=np.float64), np.asarray(hi, dtype=np.float64)
+        n = len(self.lo)
+        extent = (self.hi - self.lo).max(axis=1) if n else np.zeros(0)
+        span = float((self.hi.max(axis=0) - self.lo.min(axis=0)).max()) if n else 1.0
+        self.cell = max(float(np.quantile(extent, 0.99)) if n else 0.0, span / 1024, 1e-3)
+        wide = extent > self.cell
+        self.wide = np.flatnonzero(wide)
+        narrow = np.flatnonzero(~wide)
+        self.origin = self.lo[narrow].min(axis=0) if len(narrow) else np.zeros(2)
+        cells = np.floor((self.lo[narrow] - self.origin) / self.cell).astype(np.int64)
+        self.shape = tuple(int(v) for v in (cells.max(axis=0) + 1)) if len(narrow) else (0, 0)
+        keys = cells[:, 0] * max(self.shape[1], 1) + cells[:, 1]
+        order = np.argsort(keys, kind="stable")
+        self.order, self.keys = narrow[order], keys[order]
+
+    def __len__(self) -> int:
+        return len(self.lo)
+
+    def query(self, x0: float, y0: float, x1: float, y1: float) -> np.ndarray:
+        """Indices (ascending) of the boxes that touch the window [x0, x1] x [y0, y1]."""
+        nx, ny = self.shape
+        ox, oy, c = float(self.origin[0]), float(self.origin[1]), self.cell
+        # A box filed in cell k starts at or after k * c and ends by (k + 2) * c; one more cell absorbs rounding.
+        cx0, cy0 = max(math.floor((x0 - ox) / c) - 2, 0), max(math.floor((y0 - oy) / c) - 2, 0)
+        cx1, cy1 = min(math.floor((x1 - ox) / c), nx - 1), min(math.floor((y1 - oy) / c), ny - 1)
+        parts = [self.wide]
+        if cx0 <= cx1 and cy0 <= cy1:
+            columns = np.arange(cx0, cx1 + 1) * ny
+            first = np.searchsorted(self.keys, columns + cy0, side="left")
+            last = np.searchsorted(self.keys, columns + cy1, side="right")
+            parts += [self.order[a:b] for a, b in zip(first.tolist(), last.tolist()) if b > a]
+        rows = np.concatenate(parts)
+        lo, hi = self.lo[rows], self.hi[rows]
+        hit = (lo[:, 0] <= x1) & (hi[:, 0] >= x0) & (lo[:, 1] <= y1) & (hi[:, 1] >= y0)
+        return np.sort(rows[hit])
+
+
+def arc_circles(start: np.ndarray, mid: np.ndarray, end: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Centres (n, 2) and radii of the circles through each arc's three points (circumcentre formula)."""
+    (ax, ay), (mx, my), (bx, by) = start.T, mid.T, end.T
+    d = 2 * (ax * (my - by) + mx * (by - ay) + bx * (ay - my))
+    safe = np.where(np.abs(d) < 1e-15, 1.0, d)
+    ux = ((ax**2 + ay**2) * (my - by) + (mx**2 + my**2) * (by - ay) + (bx**2 + by**2) * (ay - my)) / safe
+    uy = ((ax**2 + ay**2) * (bx - mx) + (mx**2 + my**2) * (ax - bx) + (bx**2 + by**2) * (mx - ax)) / safe
+    centre = np.column_stack([ux, uy])
+    radius = np.hypot(ax - ux, ay - uy)
+    straight = np.abs(d) < 1e-15
+    centre[straight] = ((start + end) / 2)[straight]
+    radius[straight] = np.hypot(*(end - start)[straight].T) / 2
+    return centre, radius
+
+
 def _to_board(at: tuple[float, float], rotation: float, x: float, y: float) -> tuple[float, float]:
     t = math.radians(rotation)
     c, s = math.cos(t), math.sin(t)
@@ -291,6 +354,8 @@ class Board:
         self._reader = reader
         self._net_index = {n: i for i, n in enumerate(self.nets)}
         self._footprints: dict[int, Footprint] = {}
+        self._by_net: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+        self._boxes: dict[str, BoxIndex] = {}
 
     def __repr__(self) -> str:
         return (f"<Board {self.name} v{self.version}: {len(self.copper_layers)} copper layers, {len(self.nets)} nets, "
@@ -310,6 +375,52 @@ class Board:
 
     def net_index(self, name: str) -> int | None:
         return self._net_index.get(name)
+
+    def net_rows(self, kind: str, net: int) -> np.ndarray:
+        """Rows of ``kind`` ("segments", "arcs" or "vias") on net index ``net``, in file order.
+
+        One stable sort by net per kind on first use, then a binary search per net,
+        so looking up a few nets never scans the whole board again.
+        """
+        if kind not in self._by_net:
+            nets = getattr(self, kind).net
+            order = np.argsort(nets, kind="stable")
+            self._by_net[kind] = (order, nets[order])
+        order, keys = self._by_net[kind]
+        a, b = np.searchsorted(keys, [net, net + 1])
+        return order[a:b]
+
+    def boxes(self, kind: str) -> BoxIndex:
+        """Bounding boxes of every item of ``kind``, copper width included, indexed for window queries.
+
+        Kinds: "segments", "arcs" (the box of the arc's whole circle: conservative),
+        "vias" (pad disc), "pads" (each pad's circumscribed disc).
+        Built once per board on first use.
+        """
+        if kind not in self._boxes:
+            self._boxes[kind] = BoxIndex(*self._box_arrays(kind))
+        return self._boxes[kind]
+
+    def _box_arrays(self, kind: str) -> tuple[np.ndarray, np.ndarray]:
+        if kind == "segments":
+            seg = self.segments
+            half = seg.width[:, None] / 2
+            return np.minimum(seg.start, seg.end) - half, np.maximum(seg.start, seg.end) + half
+        if kind == "arcs":
+            arc = self.arcs
+            if not len(arc):
+                return np.zeros((0, 2)), np.zeros((0, 2))
+            centre, radius = arc_circles(arc.start, arc.mid, arc.end)
+            reach = radius[:, None] + arc.width[:, None] / 2
+            return centre - reach, centre + reach
+        if kind == "vias":
+            r = self.vias.size[:, None] / 2
+            return self.vias.at - r, self.vias.at + r
+        if kind == "pads":
+            pads = self.pads
+            r = np.hypot(pads.size[:, 0], pads.size[:, 1])[:, None] / 2
+            return pads.at - r, pads.at + r
+        raise ValueError(f"no boxes for {kind!r}: allowed segments, arcs, vias, pads")
 
     def layer_index(self, name: str) -> int | None:
         return self.copper_layers.index(name) if name in self.copper_layers else None
@@ -383,6 +494,7 @@ class _Reader:
         self.data = s.data
         self.warnings: list[str] = []
         self.head_names = {h: h.decode("utf-8", "replace") for h in np.unique(s.heads).tolist()}
+        self._children: dict[tuple[int, ...], tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
 
     def fail(self, offset: int, what: str) -> BoardError:
         return self.s.error(offset, what)
@@ -586,17 +698,18 @@ class _Reader:
         return m.group(1).decode("utf-8", "replace") if m else "?"
 
     def _layer_column(self, values: list[bytes], spans: np.ndarray, what: str) -> np.ndarray:
+        first = _first_rows(values)
         lut = {}
-        for v in set(values):
+        for v, row in first.items():
             name = _text(v.strip())
             if name not in self.copper:
-                bad = int(spans[values.index(v), 0])
-                raise self.fail(bad, f"{what} on layer {name!r}, which is not a copper layer of this board")
+                raise self.fail(int(spans[row, 0]),
+                                f"{what} on layer {name!r}, which is not a copper layer of this board")
             lut[v] = self.copper.index(name)
         return np.array([lut[v] for v in values], dtype=np.int16)
 
     def _net_column(self, values: list[bytes], spans: np.ndarray) -> np.ndarray:
-        lut = {v: self.net_of(v.decode("utf-8"), int(spans[values.index(v), 0])) for v in set(values)}
+        lut = {v: self.net_of(v.decode("utf-8"), int(spans[row, 0])) for v, row in _first_rows(values).items()}
         return np.array([lut[v] for v in values], dtype=np.int32)
 
     def _segments(self) -> Segments:
@@ -724,11 +837,37 @@ class _Reader:
             out.extend(n for n in expand_layers(name, self.copper, self.layer_names) if n not in out)
         return tuple(out)
 
+    def children(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``Structure.children`` of these top-level items, reading only the parentheses inside them.
+
+        Same spans, heads and owners; the work is proportional to the items' own
+        size (footprints), not to the whole file's parentheses (tracks included).
+        """
+        rows = np.asarray(rows, dtype=np.int64)
+        key = tuple(rows.tolist())
+        if key in self._children:
+            return self._children[key]
+        s = self.s
+        items = s.items[rows]
+        if not len(items):
+            return np.zeros((0, 2), np.int64), np.zeros(0, dtype="S20"), np.zeros(0, np.int64)
+        first = np.searchsorted(s.paren, items[:, 0])
+        count = np.searchsorted(s.paren, items[:, 1] - 1) + 1 - first
+        index = np.repeat(first - np.cumsum(count) + count, count) + np.arange(int(count.sum()))
+        paren, depth, step = s.paren[index], s.depth[index], s.step[index]
+        opens = paren[(depth == 3) & (step > 0)]
+        closes = paren[(depth == 2) & (step < 0)]
+        owner = rows[np.searchsorted(items[:, 0], opens, side="right") - 1]
+        spans = np.column_stack([opens, closes[:len(opens)] + 1]).astype(np.int64)
+        found = (spans, _heads(np.frombuffer(self.data, dtype=np.uint8), opens), owner)
+        self._children[key] = found
+        return found
+
     def _footprint_zones(self) -> tuple[Zone, ...]:
         rows = np.flatnonzero(self.s.heads == b"footprint")
         if not len(rows):
             return ()
-        spans, heads, owner = self.s.children(rows)
+        spans, heads, owner = self.children(rows)
         zones = []
         for (a, _), parent in zip(spans[heads == b"zone"].tolist(), owner[heads == b"zone"].tolist()):
             zones.append(self._zone(a, self._reference(*map(int, self.s.items[parent]))))
@@ -790,7 +929,7 @@ class _Reader:
         if not len(rows):
             z = np.zeros((0, 2))
             return PadArray(z, z, np.zeros(0), np.zeros(0, np.int32), np.zeros((0, 2), np.int64))
-        spans, heads, owner = self.s.children(rows)
+        spans, heads, owner = self.children(rows)
         fp_of_row = {int(r): i for i, r in enumerate(rows.tolist())}
         places = np.full((len(rows), 3), np.nan)
         for (a, b), parent in zip(spans[heads == b"at"].tolist(), owner[heads == b"at"].tolist()):
@@ -910,6 +1049,15 @@ class _Reader:
                 open_lines.append(np.array([move(p) for p in pts]))
         except (TypeError, ValueError, IndexError) as err:
             raise self.fail(offset, f"bad {node[0]} on Edge.Cuts: {err}") from None
+
+
+def _first_rows(values: list) -> dict:
+    """Each distinct value and the row it first appears in (file order, so errors name the first bad item)."""
+    first: dict = {}
+    for i, v in enumerate(values):
+        if v not in first:
+            first[v] = i
+    return first
 
 
 def _row_numbers(row: tuple, fields: tuple[int, ...], counts: tuple[int, ...]) -> list[float] | None:

@@ -106,22 +106,23 @@ def pair_nets(names: Iterable[str]) -> list[tuple[str, str, str]]:
 
 
 def find_pairs(board: Board, plane_net: str = "GND", max_gap: float = 1.0, min_length: float = 1.0,
-               only: str | None = None) -> list[BoardPair]:
+               only: str | Iterable[str] | None = None) -> list[BoardPair]:
     """Every coupled run of every pair found by net name, on every layer, sorted by name, layer and position.
 
     ``max_gap`` bounds the edge-to-edge gap of a coupled run (common practice:
     pair gaps are of the order of the trace width, well under a millimetre);
     runs shorter than ``min_length`` (mm of overlap) are dropped: no filter cell fits there.
-    ``only`` keeps the pair whose base name or one of whose nets has that name.
+    ``only`` keeps the pairs whose base name or one of whose nets is that name (or one of those names).
+    Pairs are chosen by name before any geometry is read, and each pair's tracks are
+    looked up by net, so the rest of the board costs nothing here.
     """
-    seg_groups = _by_net(board.segments.net)
-    arc_groups = _by_net(board.arcs.net)
+    wanted = None if only is None else {only} if isinstance(only, str) else set(only)
     pairs: list[BoardPair] = []
     for base, net_p, net_n in pair_nets(board.nets):
-        if only is not None and only not in (base, net_p, net_n):
+        if wanted is not None and not wanted & {base, net_p, net_n}:
             continue
-        p_items = _net_items(board, board.net_index(net_p), seg_groups, arc_groups)
-        n_items = _net_items(board, board.net_index(net_n), seg_groups, arc_groups)
+        p_items = _net_items(board, board.net_index(net_p))
+        n_items = _net_items(board, board.net_index(net_n))
         for li, layer in enumerate(board.copper_layers):
             p_pieces, n_pieces = p_items.get(li, []), n_items.get(li, [])
             if not p_pieces or not n_pieces:
@@ -139,26 +140,17 @@ def find_pairs(board: Board, plane_net: str = "GND", max_gap: float = 1.0, min_l
 Piece = Line | Arc
 
 
-def _by_net(nets: np.ndarray) -> dict[int, np.ndarray]:
-    """Item indices grouped by net, in file order (one sort for the whole board)."""
-    if not len(nets):
-        return {}
-    order = np.argsort(nets, kind="stable")
-    keys, starts = np.unique(nets[order], return_index=True)
-    return {int(k): part for k, part in zip(keys.tolist(), np.split(order, starts[1:]), strict=True)}
-
-
-def _net_items(board: Board, net: int | None, seg_groups: dict, arc_groups: dict) -> dict[int, list]:
+def _net_items(board: Board, net: int | None) -> dict[int, list]:
     """A net's tracks as (piece, width), per copper-layer index."""
     out: dict[int, list[tuple[Piece, float]]] = {}
     if net is None:
         return out
     seg, arc = board.segments, board.arcs
-    for k in seg_groups.get(net, np.zeros(0, int)).tolist():
+    for k in board.net_rows("segments", net).tolist():
         a, b = tuple(seg.start[k].tolist()), tuple(seg.end[k].tolist())
         if math.dist(a, b) > 1e-9:
             out.setdefault(int(seg.layer[k]), []).append((Line(a, b), float(seg.width[k])))
-    for k in arc_groups.get(net, np.zeros(0, int)).tolist():
+    for k in board.net_rows("arcs", net).tolist():
         a, m, b = (tuple(v[k].tolist()) for v in (arc.start, arc.mid, arc.end))
         cross = (m[0] - a[0]) * (b[1] - a[1]) - (m[1] - a[1]) * (b[0] - a[0])
         piece = Arc(a, m, b) if abs(cross) > 1e-12 else Line(a, b)
@@ -295,24 +287,62 @@ def _wrap(angle: float) -> float:
 
 def _boxes(chain: list[tuple[Piece, float]]) -> np.ndarray:
     """(n, 4) bounding boxes of a chain's pieces (arcs by their three points and their circle's reach)."""
-    out = np.empty((len(chain), 4))
+    ends = np.array([(piece.start, piece.end) for piece, _ in chain], dtype=float).reshape(-1, 2, 2)
+    out = np.hstack([ends.min(axis=1), ends.max(axis=1)])
     for i, (piece, _) in enumerate(chain):
-        pts = np.array([piece.start, piece.end] + ([piece.mid] if isinstance(piece, Arc) else []))
-        out[i, :2], out[i, 2:] = pts.min(axis=0), pts.max(axis=0)
         if isinstance(piece, Arc):
             geo = arc_geometry(piece)
-            out[i] = [max(out[i, 0] - geo.radius, geo.centre[0] - geo.radius),
-                      max(out[i, 1] - geo.radius, geo.centre[1] - geo.radius),
-                      min(out[i, 2] + geo.radius, geo.centre[0] + geo.radius),
-                      min(out[i, 3] + geo.radius, geo.centre[1] + geo.radius)]
+            lo = np.minimum(out[i, :2], piece.mid)
+            hi = np.maximum(out[i, 2:], piece.mid)
+            out[i] = [max(lo[0] - geo.radius, geo.centre[0] - geo.radius),
+                      max(lo[1] - geo.radius, geo.centre[1] - geo.radius),
+                      min(hi[0] + geo.radius, geo.centre[0] + geo.radius),
+                      min(hi[1] + geo.radius, geo.centre[1] + geo.radius)]
     return out
+
+
+def _piece_table(chains) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Start (n, 2), end (n, 2), width and is-a-line flag of every piece of the chains, in chain order."""
+    pieces = [(piece, w) for chain in chains for piece, w in chain]
+    start = np.array([p.start for p, _ in pieces], dtype=float).reshape(-1, 2)
+    end = np.array([p.end for p, _ in pieces], dtype=float).reshape(-1, 2)
+    return start, end, np.array([w for _, w in pieces]), np.array([isinstance(p, Line) for p, _ in pieces])
+
+
+def _may_partner(p_table, n_table, hits: np.ndarray, max_gap: float) -> np.ndarray:
+    """False where two candidate pieces cannot be partners in either direction (numpy form of ``_partner``).
+
+    Lines: the same tests as ``_partner`` plus the pitch window, each loosened by
+    1e-9 mm so rounding never drops a true partner; the exact test still decides.
+    A line and an arc are never partners; two arcs are left to the exact test.
+    """
+    (ps, pe, pw, p_line), (qs, qe, qw, q_line) = p_table, n_table
+    a, b = hits
+    ps, pe, qs, qe = ps[a], pe[a], qs[b], qe[b]
+    u = pe - ps
+    length = np.hypot(u[:, 0], u[:, 1])
+    u = u / np.where(length > 0, length, 1.0)[:, None]
+    d0 = u[:, 0] * (qs[:, 1] - ps[:, 1]) - u[:, 1] * (qs[:, 0] - ps[:, 0])
+    d1 = u[:, 0] * (qe[:, 1] - ps[:, 1]) - u[:, 1] * (qe[:, 0] - ps[:, 0])
+    s0 = (qs[:, 0] - ps[:, 0]) * u[:, 0] + (qs[:, 1] - ps[:, 1]) * u[:, 1]
+    s1 = (qe[:, 0] - ps[:, 0]) * u[:, 0] + (qe[:, 1] - ps[:, 1]) * u[:, 1]
+    overlap = np.minimum(length, np.maximum(s0, s1)) - np.maximum(0.0, np.minimum(s0, s1))
+    separation = np.abs(d0 + d1) / 2
+    half = (pw[a] + qw[b]) / 2
+    eps = 1e-9
+    lines = ((np.abs(d1 - d0) <= MATCH_TOLERANCE_MM + eps) & (d0 * d1 > -eps) & (overlap > 1e-6 - eps)
+             & (separation > half - eps) & (separation <= half + max_gap + eps))
+    both_lines, both_arcs = p_line[a] & q_line[b], ~p_line[a] & ~q_line[b]
+    return (both_lines & lines) | both_arcs
 
 
 def _runs(p_chains, n_chains, max_gap: float, min_length: float) -> list[_Run]:
     """Maximal runs of consecutive partner pieces at one pitch, best first, not sharing pieces.
 
     A bounding-box join of all P pieces against all N pieces (shapely's STRtree,
-    in C) leaves only pieces within reach of each other for the exact test.
+    in C) leaves only pieces within reach of each other; of those, line pairs
+    that fail the partner test in both directions are dropped with numpy
+    (``_may_partner``), so only near-parallel neighbours reach the exact test.
     """
     p_owner = [(c, i) for c, chain in enumerate(p_chains) for i in range(len(chain))]
     n_owner = [(c, k) for c, chain in enumerate(n_chains) for k in range(len(chain))]
@@ -321,6 +351,7 @@ def _runs(p_chains, n_chains, max_gap: float, min_length: float) -> list[_Run]:
     reach = max(w for c in p_chains for _, w in c) + max(w for c in n_chains for _, w in c) + max_gap
     tree = shapely.STRtree(shapely.box(*n_box.T))
     hits = tree.query(shapely.box(*(p_box + [-reach, -reach, reach, reach]).T), predicate="intersects")
+    hits = hits[:, _may_partner(_piece_table(p_chains), _piece_table(n_chains), hits, max_gap)]
     groups: dict[tuple[int, int], list[tuple[int, int]]] = {}
     for a, b in hits.T.tolist():
         (pc, i), (nc, k) = p_owner[a], n_owner[b]
@@ -632,49 +663,44 @@ def obstacles(board: Board, layout_bounds: tuple[float, float, float, float], pl
                                                                             tuple[ViaObstacle, ...]]:
     """Tracks (any copper layer) and vias/pads through the plane layers within ``margin`` of the bounds.
 
-    A bounding-box test over the numpy arrays picks the candidates; only those
-    are turned into objects.  Pads count when their copper reaches a plane
+    The board's box indexes (built once per board) pick the candidates for the
+    window; only those are turned into objects, so a query costs what is near the
+    cut, not what is on the board.  Pads count when their copper reaches a plane
     layer; each becomes a disc of its circumscribed diameter (conservative).
     """
     x0, y0, x1, y1 = layout_bounds
     x0, y0, x1, y1 = x0 - margin, y0 - margin, x1 + margin, y1 + margin
-    skip = {i for i in (board.net_index(n) for n in exclude_nets) if i is not None}
+    skip = sorted({i for i in (board.net_index(n) for n in exclude_nets) if i is not None})
     names, layers = board.nets, board.copper_layers
     planes = [board.layer_index(p) for p in plane_layers if board.layer_index(p) is not None]
 
-    def keep(lo, hi, net):
-        hit = (lo[:, 0] <= x1) & (hi[:, 0] >= x0) & (lo[:, 1] <= y1) & (hi[:, 1] >= y0)
-        return np.flatnonzero(hit & ~np.isin(net, list(skip)))
+    def near(kind: str, nets: np.ndarray | None) -> np.ndarray:
+        rows = board.boxes(kind).query(x0, y0, x1, y1)
+        return rows[~np.isin(nets[rows], skip)] if nets is not None and skip else rows
 
     tracks: list[TrackObstacle] = []
     seg = board.segments
-    half = seg.width[:, None] / 2
-    for k in keep(np.minimum(seg.start, seg.end) - half, np.maximum(seg.start, seg.end) + half, seg.net).tolist():
+    for k in near("segments", seg.net).tolist():
         tracks.append(TrackObstacle((tuple(seg.start[k].tolist()), tuple(seg.end[k].tolist())), float(seg.width[k]),
                                     layers[seg.layer[k]], names[seg.net[k]]))
     arc = board.arcs
     if len(arc):
-        centre, radius = _arc_circles(arc)
-        reach = radius[:, None] + arc.width[:, None] / 2
-        for k in keep(centre - reach, centre + reach, arc.net).tolist():
+        for k in near("arcs", arc.net).tolist():
             piece = Arc(*(tuple(v[k].tolist()) for v in (arc.start, arc.mid, arc.end)))
             tracks.append(TrackObstacle(tuple(piece_points(piece)), float(arc.width[k]), layers[arc.layer[k]],
                                         names[arc.net[k]]))
     vias: list[ViaObstacle] = []
     via = board.vias
-    spans_plane = np.zeros(len(via), dtype=bool)
+    rows = near("vias", via.net)
+    spans_plane = np.zeros(len(rows), dtype=bool)
     for p in planes:
-        spans_plane |= (via.layers[:, 0] <= p) & (via.layers[:, 1] >= p)
-    r = via.size[:, None] / 2
-    for k in keep(via.at - r, via.at + r, via.net).tolist():
-        if spans_plane[k]:
-            vias.append(ViaObstacle(tuple(via.at[k].tolist()), float(via.size[k]), names[via.net[k]]))
+        spans_plane |= (via.layers[rows, 0] <= p) & (via.layers[rows, 1] >= p)
+    for k in rows[spans_plane].tolist():
+        vias.append(ViaObstacle(tuple(via.at[k].tolist()), float(via.size[k]), names[via.net[k]]))
     pads = board.pads
     if len(pads):
-        r = np.hypot(pads.size[:, 0], pads.size[:, 1])[:, None] / 2
-        near = keep(pads.at - r, pads.at + r, np.full(len(pads), -1))
         plane_names = {layers[p] for p in planes}
-        for fp_index in sorted(set(pads.footprint[near].tolist())):
+        for fp_index in sorted(set(pads.footprint[near("pads", None)].tolist())):
             for pad in board.footprint(fp_index).pads:
                 d = math.hypot(*pad.size)
                 inside = (x0 - d / 2 <= pad.at[0] <= x1 + d / 2) and (y0 - d / 2 <= pad.at[1] <= y1 + d / 2)
@@ -683,18 +709,3 @@ def obstacles(board: Board, layout_bounds: tuple[float, float, float, float], pl
     tracks.sort(key=lambda t: (t.layer, t.net, t.points))
     vias.sort(key=lambda v: (v.at, v.net))
     return tuple(tracks), tuple(vias)
-
-
-def _arc_circles(arc) -> tuple[np.ndarray, np.ndarray]:
-    """Centres (n, 2) and radii of the circles through each arc's three points (circumcentre formula)."""
-    (ax, ay), (mx, my), (bx, by) = arc.start.T, arc.mid.T, arc.end.T
-    d = 2 * (ax * (my - by) + mx * (by - ay) + bx * (ay - my))
-    safe = np.where(np.abs(d) < 1e-15, 1.0, d)
-    ux = ((ax**2 + ay**2) * (my - by) + (mx**2 + my**2) * (by - ay) + (bx**2 + by**2) * (ay - my)) / safe
-    uy = ((ax**2 + ay**2) * (bx - mx) + (mx**2 + my**2) * (ax - bx) + (bx**2 + by**2) * (mx - ax)) / safe
-    centre = np.column_stack([ux, uy])
-    radius = np.hypot(ax - ux, ay - uy)
-    straight = np.abs(d) < 1e-15
-    centre[straight] = ((arc.start + arc.end) / 2)[straight]
-    radius[straight] = np.hypot(*(arc.end - arc.start)[straight].T) / 2
-    return centre, radius

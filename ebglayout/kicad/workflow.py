@@ -7,6 +7,7 @@ board is never written; the output board differs from it only by inserted items.
 """
 from __future__ import annotations
 
+import bisect
 import fnmatch
 import json
 import math
@@ -32,7 +33,7 @@ from ..spec import Arc, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
-from .pairs import BoardPair, find_pairs, obstacles, pair_spec_dict, plane_layers_for
+from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -127,10 +128,12 @@ def net_lines(board: Board, net: str, layer: str) -> list[LineString]:
     if ni is None or li is None:
         return []
     seg, arc = board.segments, board.arcs
-    lines = [LineString([tuple(a), tuple(b)]) for a, b in
-             zip(seg.start[(seg.net == ni) & (seg.layer == li)].tolist(), seg.end[(seg.net == ni) & (seg.layer == li)].tolist())]
-    mask = (arc.net == ni) & (arc.layer == li)
-    for s, m, e in zip(arc.start[mask].tolist(), arc.mid[mask].tolist(), arc.end[mask].tolist()):
+    rows = board.net_rows("segments", ni)
+    rows = rows[seg.layer[rows] == li]
+    lines = [LineString([tuple(a), tuple(b)]) for a, b in zip(seg.start[rows].tolist(), seg.end[rows].tolist())]
+    rows = board.net_rows("arcs", ni)
+    rows = rows[arc.layer[rows] == li]
+    for s, m, e in zip(arc.start[rows].tolist(), arc.mid[rows].tolist(), arc.end[rows].tolist()):
         lines.append(LineString(piece_points(Arc(tuple(s), tuple(m), tuple(e)))))
     if not lines:
         return []
@@ -151,8 +154,18 @@ def board_traces(board: Board, layout: Layout, pair: BoardPair) -> tuple:
     return tuple(traces)
 
 
-def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None) -> CheckContext:
-    """Other copper near the cut, the board outline, whether the pair has planes on both sides, and references."""
+def reference_planes(board: Board) -> dict[str, tuple[str, ...]]:
+    """Each copper layer's nearest copper-zone layers above and below (of any net)."""
+    # A signal layer's return current runs on the nearest plane of any net, so references ignore the net.
+    return {layer: plane_layers_for(board, layer, None)[0] for layer in board.copper_layers}
+
+
+def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
+                  references: dict[str, tuple[str, ...]] | None = None) -> CheckContext:
+    """Other copper near the cut, the board outline, whether the pair has planes on both sides, and references.
+
+    ``references`` is ``reference_planes(board)``, passed in when many filters share one board.
+    """
     spec = layout.spec
     bounds = shapely.union_all([c.outline for c in layout.cuts]).bounds
     tracks, vias = obstacles(board, bounds, spec.plane_layers, exclude_nets=spec.nets)
@@ -161,10 +174,83 @@ def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None) 
     if outline is not None and outline.geom_type == "MultiPolygon":
         centre = shapely.Point(layout.cells[0].centre)
         outline = min(outline.geoms, key=lambda g: g.distance(centre))
-    # A signal layer's return current runs on the nearest plane of any net, so references ignore the net.
-    references = {layer: plane_layers_for(board, layer, None)[0] for layer in board.copper_layers}
+    if references is None:
+        references = reference_planes(board)
     return CheckContext(tracks=tracks, vias=vias, plane_outline=outline, sandwiched=len(found) == 2,
                         references=references, estimate=estimate)
+
+
+def board_skeleton(board: Board, nets: bool = False, footprints: bool = False) -> str:
+    """The board text cut down to what the insert module reads, for its per-filter calls.
+
+    Kept: every byte up to the end of the first item (the version stamp), the layer
+    table and the top-level zones without their fills; with ``nets`` the net
+    declarations, with ``footprints`` the footprints that hold zones.  Those readers
+    walk every parenthesis in Python: seconds per call on a board of 10^5 tracks,
+    milliseconds on this text.  Items keep their bytes, so they read the same values.
+    """
+    data = board.data
+    if not len(board.items):
+        return data[:board.root[1] - 1].decode("utf-8") + "\n)\n"
+    first_end = int(board.items[0][1])
+    heads = ["layers", "zone"] + (["net"] if nets else [])
+    spans = [board.spans(h) for h in heads]
+    if footprints:
+        spans.append(np.array([(a, b) for a, b in board.spans("footprint").tolist() if b"(zone" in data[a:b]],
+                              dtype=np.int64).reshape(-1, 2))
+    spans = np.concatenate(spans)
+    spans = spans[np.argsort(spans[:, 0])]
+    fills = sorted(span for zone in board.zones for span in zone.fill_spans)
+    starts = [a for a, _ in fills]
+    parts = [data[:first_end]]
+    for a, b in spans[spans[:, 0] >= first_end].tolist():
+        k, pos = bisect.bisect_left(starts, a), a
+        parts.append(b"\n  ")
+        while k < len(fills) and fills[k][0] < b:
+            parts.append(data[pos:fills[k][0]])
+            pos = fills[k][1]
+            k += 1
+        parts.append(data[pos:b])
+    parts.append(b"\n)\n")
+    return b"".join(parts).decode("utf-8")
+
+
+class BoardTexts:
+    """The small board texts one board's filters share (see ``board_skeleton``), each cut once on first use."""
+
+    def __init__(self, board: Board):
+        self.board = board
+        self._texts: dict[tuple[bool, bool], str] = {}
+        self._plane_nets: dict[str, tuple[int, str]] = {}
+        self._version: int | None = None
+
+    def text(self, nets: bool = False, footprints: bool = False) -> str:
+        key = (nets, footprints)
+        if key not in self._texts:
+            self._texts[key] = board_skeleton(self.board, nets=nets, footprints=footprints)
+        return self._texts[key]
+
+    @property
+    def version(self) -> int:
+        """``insert.board_version`` of the board."""
+        if self._version is None:
+            self._version = board_version(self.text(), self.board.name)
+        return self._version
+
+    def plane_net(self, name: str) -> tuple[int, str]:
+        """``insert.plane_net`` of the board, per net name."""
+        if name not in self._plane_nets:
+            self._plane_nets[name] = plane_net(self.text(nets=True), name, self.board.name)
+        return self._plane_nets[name]
+
+
+def with_items(board: Board, items: list[str]) -> str:
+    """``insert_footprints(board.text, items)`` from the reader's spans: the root's closing parenthesis is known."""
+    close = board.insert_offset
+    inserted = "".join(item if item.endswith("\n") else item + "\n" for item in items)
+    if inserted and board.data[close - 1:close] != b"\n":
+        inserted = "\n" + inserted
+    return board.splice(close, close, inserted).decode("utf-8")
 
 
 def _next_reference(board: Board, taken: set[str]) -> str:
@@ -181,8 +267,13 @@ def _filter_name(base: str, spec: dict, source: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
 
 
-def build_on_board(board: Board, request: Request, pair: BoardPair, reference: str) -> PlacedFilter:
-    """Build, estimate and check one filter under ``pair`` against the board's real copper."""
+def build_on_board(board: Board, request: Request, pair: BoardPair, reference: str, texts: BoardTexts | None = None,
+                   references: dict[str, tuple[str, ...]] | None = None) -> PlacedFilter:
+    """Build, estimate and check one filter under ``pair`` against the board's real copper.
+
+    ``texts`` (``BoardTexts(board)``) and ``references`` (``reference_planes(board)``)
+    are passed in when many filters share one board, so each is made once.
+    """
     from ..estimate.band import estimate_layout
 
     user = {k: (dict(v) if isinstance(v, dict) else v) for k, v in request.spec.items()}
@@ -196,18 +287,22 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
                         "tracks, so draw the folded route on the board first (or use `build` to get the route)")
     layout = with_copper(layout, traces=board_traces(board, layout, pair))
     estimate = estimate_layout(layout)
-    checks = run_checks(layout, board_context(board, layout, pair), estimate=estimate)
-    text = board.text
-    item = board_footprint_text(layout, board_version(text, board.name), reference=reference,
-                                plane_net=plane_net(text, spec.plane_net, board.name),
-                                zone_priority=zone_priority_for(text, layout, spec.plane_net, board.name), design=design)
+    checks = run_checks(layout, board_context(board, layout, pair, references=references), estimate=estimate)
+    texts = texts if texts is not None else BoardTexts(board)
+    item = board_footprint_text(layout, texts.version, reference=reference, plane_net=texts.plane_net(spec.plane_net),
+                                zone_priority=zone_priority_for(texts.text(), layout, spec.plane_net, board.name),
+                                design=design)
     return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate), design, item)
 
 
 def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
     """Every filter of every request, inserted into one new board text with one merged rule file."""
-    pairs = find_pairs(board)
-    jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
+    pairs = _pairs_for(board, requests)
+    try:
+        jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
+    except SpecError:
+        pairs = find_pairs(board)  # the error then lists every pair on the board
+        jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
     seen: set[str] = set()
     for _, pair in jobs:
         if pair.base in seen:
@@ -215,14 +310,20 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
         seen.add(pair.base)
     placed: list[PlacedFilter] = []
     taken: set[str] = set()
+    texts, references = BoardTexts(board), reference_planes(board)
     for request, pair in (progress(jobs) if progress else jobs):
         reference = _next_reference(board, taken)
         taken.add(reference)
-        placed.append(build_on_board(board, request, pair, reference))
-    new_text = insert_footprints(board.text, [p.item for p in placed], board.name)
+        placed.append(build_on_board(board, request, pair, reference, texts, references))
+    items = [p.item for p in placed]
+    new_text = with_items(board, items)
     rules = merge_rules(existing_rules, rules_text(*(p.result.layout for p in placed)))
+    # fill_risks reads the layers, zones and (for bridged cuts only) footprints of new_text; these texts hold them.
+    bridged = any(p.result.layout.spec.style == "bridged" for p in placed)
+    with_footprints = insert_footprints(texts.text(footprints=True), items, board.name) if bridged else None
     risks = [f"{p.reference} {p.result.name}: {risk}" for p in placed
-             for risk in fill_risks(new_text, p.result.layout, p.result.layout.spec.plane_net, rules)]
+             for risk in fill_risks(with_footprints if p.result.layout.spec.style == "bridged" else texts.text(),
+                                    p.result.layout, p.result.layout.spec.plane_net, rules)]
     notes = list(board.warnings)
     for p in placed:
         notes += [f"{p.pair.base}: {w}" for w in p.pair.warnings]
@@ -231,6 +332,14 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
             notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
                          f"stackup.h = {spec.h:g} mm")
     return Placement(placed, new_text, rules, risks, notes)
+
+
+def _pairs_for(board: Board, requests: list[Request]) -> list[BoardPair]:
+    """The pairs the requests can select, chosen by name before any geometry is read."""
+    wanted = {base for base, net_p, net_n in pair_nets(board.nets) for request in requests
+              if (request.pair is not None and {net_p, net_n} == set(request.pair))
+              or (request.match is not None and fnmatch.fnmatchcase(base, request.match))}
+    return find_pairs(board, only=wanted) if wanted else []
 
 
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
@@ -311,9 +420,10 @@ def check_board(board_path: str | Path) -> list[CheckReport]:
     designs = placed_designs(board)
     if not designs:
         return []
-    pairs = find_pairs(board)
+    pairs = find_pairs(board, only={net for _, design in designs for net in _design_nets(design)})
     rules_path = Path(board_path).with_suffix(".kicad_dru")
     rules = rules_path.read_text(encoding="utf-8") if rules_path.exists() else None
+    references, texts = reference_planes(board), BoardTexts(board)
     reports = []
     for footprint, design in designs:
         spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
@@ -323,16 +433,24 @@ def check_board(board_path: str | Path) -> list[CheckReport]:
             pair = max(match, key=lambda bp: bp.length)
             layout = with_copper(layout, traces=board_traces(board, layout, pair))
         estimate = estimate_layout(layout)
-        context = board_context(board, layout, match[0], estimate) if match else CheckContext(estimate=estimate)
+        context = board_context(board, layout, match[0], estimate, references) if match \
+            else CheckContext(estimate=estimate)
         report = run_checks(layout, context, estimate=estimate)
         fill = RuleResult("kicad-fill", checked=1, unit="")
-        for risk in fill_risks(board.text, layout, spec.plane_net, rules):
+        for risk in fill_risks(texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, rules):
             fill.add("warning", risk, layout.cells[0].centre)
         if not match:
             fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
                      f"{spec.pair_layer}", layout.cells[0].centre)
         reports.append(replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,)))
     return reports
+
+
+def _design_nets(design: dict) -> list[str]:
+    """The pair nets a stored design names (none when it is malformed; spec_from_dict reports that)."""
+    pair = design.get("pair")
+    nets = pair.get("nets") if isinstance(pair, dict) else None
+    return [n for n in nets if isinstance(n, str)] if isinstance(nets, list) else []
 
 
 def pair_table(board: Board, min_run: float = 2.0) -> list[dict]:
