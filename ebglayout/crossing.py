@@ -53,14 +53,17 @@ def find_crossings(trace_line: LineString, polarity: str, trace_width: float, cu
     pieces = [_oriented(p, trace_line) for p in pieces]
 
     bodies = _Bodies(cut)
-    edges = _segments(slot.boundary)
+    edges = _Edges(slot.boundary)
     corners = _convex_corners(cut.patch)
+    corner_tree = shapely.STRtree(corners) if len(corners) else None
     ends = (Point(trace_line.coords[0]), Point(trace_line.coords[-1]))
     out = []
     for piece in pieces:
         a, b = Point(piece.coords[0]), Point(piece.coords[-1])
-        on_a = slot.boundary.distance(a) < TOUCH_MM and a.distance(ends[0]) > TOUCH_MM
-        on_b = slot.boundary.distance(b) < TOUCH_MM and b.distance(ends[1]) > TOUCH_MM
+        dist_a, edge_a = edges.nearest(a)
+        dist_b, edge_b = edges.nearest(b)
+        on_a = dist_a < TOUCH_MM and a.distance(ends[0]) > TOUCH_MM
+        on_b = dist_b < TOUCH_MM and b.distance(ends[1]) > TOUCH_MM
         body_a, body_b = bodies.at(a, piece, entering=True), bodies.at(b, piece, entering=False)
         if not (on_a and on_b):
             kind = "ends"
@@ -68,10 +71,12 @@ def find_crossings(trace_line: LineString, polarity: str, trace_width: float, cu
             kind = "full"
         else:
             kind = "along"
-        angle = min(_angle(piece, a, edges, first=True), _angle(piece, b, edges, first=False))
+        angle = min(_angle(piece, edge_a, first=True), _angle(piece, edge_b, first=False))
         mid = piece.interpolate(0.5, normalized=True)
         band = piece.buffer(trace_width / 2, cap_style="flat")
-        corner = float(shapely.distance(band, corners).min()) if len(corners) else math.inf
+        corner = math.inf
+        if corner_tree is not None:
+            corner = float(band.distance(corners[int(corner_tree.nearest(band))]))
         out.append(Crossing(
             layer=cut.layer, polarity=polarity, kind=kind, point=(round(mid.x, 6), round(mid.y, 6)),
             s_trace=trace_line.project(mid), s_centre=centre.project(mid), length=piece.length,
@@ -91,8 +96,8 @@ class _Bodies:
     """Names the copper body a slot-boundary point belongs to: a patch, a bridge, or the plane."""
 
     def __init__(self, cut):
-        self.patches = list(cut.patch.geoms)
-        self.bridges = list(cut.bridge.geoms)
+        self.patches = shapely.STRtree(list(cut.patch.geoms))
+        self.bridges = shapely.STRtree(list(cut.bridge.geoms))
 
     def at(self, point: Point, piece: LineString, entering: bool) -> str:
         # Step a hair outside the slot, back along the trace, to see which copper it came from / goes to.
@@ -100,35 +105,37 @@ class _Bodies:
         direction = coords[1] - coords[0] if entering else coords[-1] - coords[-2]
         direction = direction / (np.linalg.norm(direction) or 1.0)
         probe = Point(np.asarray(point.coords[0]) + (-1 if entering else 1) * 5 * TOUCH_MM * direction)
-        for i, p in enumerate(self.patches):
-            if p.distance(probe) < TOUCH_MM:
-                return f"patch{i}"
-        for i, b in enumerate(self.bridges):
-            if b.distance(probe) < TOUCH_MM:
-                return f"bridge{i}"
+        for name, tree in (("patch", self.patches), ("bridge", self.bridges)):
+            hits = tree.query(probe, predicate="dwithin", distance=TOUCH_MM)
+            if len(hits):
+                return f"{name}{int(min(hits))}"
         return "plane"
 
 
-def _segments(boundary) -> np.ndarray:
-    """All boundary segments as an (n, 2, 2) array."""
-    segs = []
-    for ring in getattr(boundary, "geoms", [boundary]):
-        c = np.asarray(ring.coords)
-        segs.append(np.stack([c[:-1], c[1:]], axis=1))
-    return np.concatenate(segs) if segs else np.zeros((0, 2, 2))
+class _Edges:
+    """The slot boundary's segments, indexed for the nearest edge to a point."""
+
+    def __init__(self, boundary):
+        segs = []
+        for ring in getattr(boundary, "geoms", [boundary]):
+            c = np.asarray(ring.coords)
+            segs.append(np.stack([c[:-1], c[1:]], axis=1))
+        self.segments = np.concatenate(segs) if segs else np.zeros((0, 2, 2))
+        self.lines = shapely.linestrings(self.segments)
+        self.tree = shapely.STRtree(self.lines)
+
+    def nearest(self, point: Point) -> tuple[float, np.ndarray]:
+        """(distance, direction vector) of the boundary edge nearest to ``point``."""
+        k = int(self.tree.nearest(point))
+        seg = self.segments[k]
+        return float(point.distance(self.lines[k])), seg[1] - seg[0]
 
 
-def _angle(piece: LineString, point: Point, edges: np.ndarray, first: bool) -> float:
+def _angle(piece: LineString, edge: np.ndarray, first: bool) -> float:
     """Angle in degrees (0..90) between the trace and the slot edge where it enters or leaves."""
     c = np.asarray(piece.coords)
     d = c[1] - c[0] if first else c[-1] - c[-2]
-    p = np.asarray(point.coords[0])
-    a, b = edges[:, 0], edges[:, 1]
-    ab = b - a
-    t = np.clip(np.einsum("ij,ij->i", p - a, ab) / np.maximum(np.einsum("ij,ij->i", ab, ab), 1e-30), 0, 1)
-    dist = np.linalg.norm(a + t[:, None] * ab - p, axis=1)
-    e = ab[int(np.argmin(dist))]
-    cos = abs(float(np.dot(d, e))) / (np.linalg.norm(d) * np.linalg.norm(e))
+    cos = abs(float(np.dot(d, edge))) / (np.linalg.norm(d) * np.linalg.norm(edge))
     return math.degrees(math.acos(min(1.0, cos)))
 
 

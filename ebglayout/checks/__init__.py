@@ -104,7 +104,6 @@ def run_checks(layout, context=None, estimate=None) -> CheckReport:
     from dataclasses import replace
 
     from .rules import RULE_FUNCTIONS, context_from_spec
-    from .widths import min_width
 
     ctx = context if context is not None else context_from_spec(layout.spec)
     if estimate is not None:
@@ -112,16 +111,12 @@ def run_checks(layout, context=None, estimate=None) -> CheckReport:
     results = tuple(rule(layout, ctx) for rule in RULE_FUNCTIONS)
     by_layer = {cut.layer: {pol: len(layout.full_crossings(cut.layer, pol)) for pol in ("P", "N")}
                 for cut in layout.cuts}
-    first = layout.cuts[0].layer
-    slot = [w for cut in layout.cuts if (w := min_width(cut.slot))]
-    from .rules import cut_copper
-
-    copper = [w for cut in layout.cuts if (w := min_width(cut_copper(cut)))]
+    worst = {r.rule: r.worst for r in results}
     return CheckReport(
         name=layout.spec.name,
         results=results,
-        crossings=dict(by_layer[first]),
+        crossings=dict(by_layer[layout.cuts[0].layer]),
         crossings_by_layer=by_layer,
-        min_slot_width=min(w.width for w in slot) if slot else None,
-        min_copper_width=min(w.width for w in copper) if copper else None,
+        min_slot_width=worst["slot-width"],
+        min_copper_width=worst["copper-width"],
     )

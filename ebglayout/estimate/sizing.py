@@ -12,7 +12,6 @@ from __future__ import annotations
 import math
 from types import SimpleNamespace
 
-from scipy.optimize import brentq
 
 from ..cells.bridged import bridged_cell
 from ..cells.shape import rectangle
@@ -94,6 +93,8 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
         largest *= 2
         if largest > 1000:
             raise SpecError("target", target_hz, "needs a patch larger than 1 m; check the units")
+    from scipy.optimize import brentq  # here, not at import: it costs every CLI start ~0.3 s
+
     along = brentq(lambda a: notch(a) / target_hz - 1, smallest, largest, xtol=1e-7, rtol=1e-10)
     result = estimate_cell(_cell(dims(along), shape), er, h, length)
     out = _result(style, target_hz, er, dims(along), result)
