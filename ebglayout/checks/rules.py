@@ -175,32 +175,28 @@ def crossing_along(layout: Layout, ctx: CheckContext) -> RuleResult:
     return r
 
 
-def crossing_angle(layout: Layout, ctx: CheckContext) -> RuleResult:
-    spec = layout.spec
-    r = RuleResult("crossing-angle", unit="deg", limit=spec.min_angle)
+def _least_at_full_crossings(layout: Layout, rule: str, unit: str, limit: float, value, describe) -> RuleResult:
+    """A lower-bound rule evaluated at every full crossing: ``value(c)`` must stay >= ``limit``."""
+    r = RuleResult(rule, unit=unit, limit=limit)
     for c in layout.crossings:
-        if c.kind != "full":
+        v = value(c)
+        if c.kind != "full" or not math.isfinite(v):
             continue
         r.checked += 1
-        r.see(c.angle_deg)
-        if c.angle_deg < spec.min_angle - 1e-6:
-            r.add("error", f"{c.layer}: trace {c.polarity} crosses a slot edge at {c.angle_deg:.1f} deg "
-                  f"(min {spec.min_angle:g})", c.point, c.angle_deg, spec.min_angle, c.layer)
+        r.see(v)
+        if v < limit - 1e-6:
+            r.add("error", f"{c.layer}: trace {c.polarity} {describe(v)} (min {limit:g})", c.point, v, limit, c.layer)
     return r
+
+
+def crossing_angle(layout: Layout, ctx: CheckContext) -> RuleResult:
+    return _least_at_full_crossings(layout, "crossing-angle", "deg", layout.spec.min_angle, lambda c: c.angle_deg,
+                                    lambda v: f"crosses a slot edge at {v:.1f} deg")
 
 
 def corner_margin(layout: Layout, ctx: CheckContext) -> RuleResult:
-    spec = layout.spec
-    r = RuleResult("corner-margin", unit="mm", limit=spec.corner_margin)
-    for c in layout.crossings:
-        if c.kind != "full" or not math.isfinite(c.corner_distance):
-            continue
-        r.checked += 1
-        r.see(c.corner_distance)
-        if c.corner_distance < spec.corner_margin - 1e-6:
-            r.add("error", f"{c.layer}: trace {c.polarity} crosses {c.corner_distance:.4g} mm from a patch corner "
-                  f"(min {spec.corner_margin:g})", c.point, c.corner_distance, spec.corner_margin, c.layer)
-    return r
+    return _least_at_full_crossings(layout, "corner-margin", "mm", layout.spec.corner_margin,
+                                    lambda c: c.corner_distance, lambda v: f"crosses {v:.4g} mm from a patch corner")
 
 
 def crossing_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
