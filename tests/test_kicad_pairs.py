@@ -348,3 +348,17 @@ def test_obstacles_under_the_l0_filter(sample):
     assert vias == ()
     arcs = [t for t in obstacles(sample, (118, 98, 127, 107), ["In1.Cu"])[0] if len(t.points) > 2]
     assert {t.net for t in arcs} == {"HX2_L1_RX_P", "HX2_L1_RX_N"}
+
+
+def test_close_pairs_equal_brute_force():
+    """The x-sweep that joins track ends finds exactly the pairs a brute-force distance matrix finds."""
+    from ebglayout.kicad.pairs import _close_pairs
+
+    rng = np.random.default_rng(12)
+    for n in (0, 1, 2, 50, 800):
+        points = np.round(rng.uniform(0, 5, (n, 2)), 1)  # many exact repeats, as chained track ends are
+        points[::5] += rng.normal(0, 6e-5, (len(points[::5]), 2))
+        tol = 1e-4
+        d = np.hypot(*(points[:, None, :] - points[None, :, :]).transpose(2, 0, 1)) if n else np.zeros((0, 0))
+        expected = sorted((i, j) for i, j in zip(*np.nonzero(d <= tol)) if i < j)
+        assert _close_pairs(points.reshape(-1, 2), tol) == expected

@@ -20,9 +20,6 @@ import math
 
 import numpy as np
 import shapely
-from scipy.sparse import coo_matrix, diags
-from scipy.sparse.csgraph import connected_components
-from scipy.sparse.linalg import eigsh
 from shapely import affinity
 from shapely.geometry import MultiPolygon, Polygon
 
@@ -148,6 +145,10 @@ def _grid_lines(local: Polygon, axis: int, step: float, refine: int) -> np.ndarr
 
 def _eigenvalues(local: Polygon, n: int, step: float, refine: int) -> list[float]:
     """Lowest n non-zero eigenvalues of the finite-volume Neumann Laplacian on one grid."""
+    from scipy.sparse import coo_matrix, diags  # imported on use: rectangles never need scipy
+    from scipy.sparse.csgraph import connected_components
+    from scipy.sparse.linalg import eigsh
+
     xs = _grid_lines(local, 0, step, refine)
     ys = _grid_lines(local, 1, step, refine)
     nx, ny = len(xs) - 1, len(ys) - 1

@@ -25,7 +25,6 @@ from typing import Iterable
 
 import numpy as np
 import shapely
-from scipy.spatial import cKDTree
 from shapely.geometry import LineString, MultiPolygon, Point
 from shapely.ops import nearest_points
 
@@ -166,7 +165,7 @@ def _chains(pieces: list[tuple[Piece, float]]) -> list[list[tuple[Piece, float]]
     """Order connected pieces into chains, splitting at branches; collinear lines and co-circular arcs merged."""
     ends = np.array([[p.start, p.end] for p, _ in pieces], dtype=float).reshape(-1, 2)
     node = np.arange(len(ends))
-    for i, j in sorted(cKDTree(ends).query_pairs(JOIN_TOLERANCE_MM)):
+    for i, j in _close_pairs(ends, JOIN_TOLERANCE_MM):
         a, b = _root(node, i), _root(node, j)
         node[max(a, b)] = min(a, b)
     node = np.array([_root(node, i) for i in range(len(ends))])
@@ -202,6 +201,22 @@ def _chains(pieces: list[tuple[Piece, float]]) -> list[list[tuple[Piece, float]]
         if not visited[i]:
             chains.append(walk(2 * i))
     return [_merge(c) for c in chains if c]
+
+
+def _close_pairs(points: np.ndarray, tolerance: float) -> list[tuple[int, int]]:
+    """Index pairs (i < j) of points within ``tolerance`` of each other, sorted: a sweep along x in numpy."""
+    order = np.argsort(points[:, 0], kind="stable")
+    xs = points[order, 0]
+    reach = np.searchsorted(xs, xs + tolerance, side="right") - np.arange(len(xs))
+    found = []
+    for step in range(1, int(reach.max(initial=1))):
+        first = np.flatnonzero(reach > step)
+        a, b = order[first], order[first + step]
+        near = np.hypot(*(points[a] - points[b]).T) <= tolerance
+        found.append(np.sort(np.stack([a[near], b[near]], axis=1), axis=1))
+    if not found:
+        return []
+    return sorted(map(tuple, np.concatenate(found).tolist()))
 
 
 def _root(parent: np.ndarray, i: int) -> int:
