@@ -63,9 +63,17 @@ def write_dxf(layout: Layout, path: str | Path, findings: Sequence = ()) -> Path
     path = Path(path)
     with _frozen_metadata():
         doc = build_document(layout, findings)
+        _sort_classes(doc)
         with atomic_path(path) as tmp:
             doc.saveas(tmp)
     return path
+
+
+def _sort_classes(doc: ezdxf.document.Drawing) -> None:
+    """Put the CLASSES section in name order: ezdxf adds the classes of the entity types in use from a set,
+    whose order follows Python's per-process string hash, so the same drawing could be written two ways."""
+    doc.classes.add_required_classes(doc.dxfversion)
+    doc.classes.classes = dict(sorted(doc.classes.classes.items()))
 
 
 def build_document(layout: Layout, findings: Sequence = ()) -> ezdxf.document.Drawing:
