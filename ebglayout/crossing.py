@@ -52,35 +52,39 @@ def find_crossings(trace_line: LineString, polarity: str, trace_width: float, cu
     pieces = sorted(getattr(merged, "geoms", [merged]), key=lambda g: trace_line.project(Point(g.coords[0])))
     pieces = [_oriented(p, trace_line) for p in pieces]
 
-    bodies = _Bodies(cut)
-    edges = _Edges(slot.boundary)
-    corners = _convex_corners(cut.patch)
-    corner_tree = shapely.STRtree(corners) if len(corners) else None
-    ends = (Point(trace_line.coords[0]), Point(trace_line.coords[-1]))
+    index = getattr(cut, "slot_index", None) or SlotIndex(cut)
+    coords = [np.asarray(p.coords) for p in pieces]
+    first = np.array([c[0] for c in coords])
+    last = np.array([c[-1] for c in coords])
+    enter = _unit(np.array([c[1] - c[0] for c in coords]))
+    leave = _unit(np.array([c[-1] - c[-2] for c in coords]))
+    dist_a, edge_a = index.nearest_edges(first)
+    dist_b, edge_b = index.nearest_edges(last)
+    ends = np.asarray(trace_line.coords)[[0, -1]]
+    on_a = (dist_a < TOUCH_MM) & (np.hypot(*(first - ends[0]).T) > TOUCH_MM)
+    on_b = (dist_b < TOUCH_MM) & (np.hypot(*(last - ends[1]).T) > TOUCH_MM)
+    # Step a hair outside the slot, back along the trace, to see which copper it came from / goes to.
+    body_a = index.bodies_at(first - 5 * TOUCH_MM * enter)
+    body_b = index.bodies_at(last + 5 * TOUCH_MM * leave)
+    angles = np.minimum(_angles(enter, edge_a), _angles(leave, edge_b))
+    geoms = np.array(pieces, dtype=object)
+    mids = shapely.line_interpolate_point(geoms, 0.5, normalized=True)
+    corners = index.corner_distances(shapely.buffer(geoms, trace_width / 2, cap_style="flat"))
+    s_trace = shapely.line_locate_point(trace_line, mids)
+    s_centre = shapely.line_locate_point(centre, mids)
     out = []
-    for piece in pieces:
-        a, b = Point(piece.coords[0]), Point(piece.coords[-1])
-        dist_a, edge_a = edges.nearest(a)
-        dist_b, edge_b = edges.nearest(b)
-        on_a = dist_a < TOUCH_MM and a.distance(ends[0]) > TOUCH_MM
-        on_b = dist_b < TOUCH_MM and b.distance(ends[1]) > TOUCH_MM
-        body_a, body_b = bodies.at(a, piece, entering=True), bodies.at(b, piece, entering=False)
-        if not (on_a and on_b):
+    for k, piece in enumerate(pieces):
+        if not (on_a[k] and on_b[k]):
             kind = "ends"
-        elif body_a != body_b:
+        elif body_a[k] != body_b[k]:
             kind = "full"
         else:
             kind = "along"
-        angle = min(_angle(piece, edge_a, first=True), _angle(piece, edge_b, first=False))
-        mid = piece.interpolate(0.5, normalized=True)
-        band = piece.buffer(trace_width / 2, cap_style="flat")
-        corner = math.inf
-        if corner_tree is not None:
-            corner = float(band.distance(corners[int(corner_tree.nearest(band))]))
+        mx, my = shapely.get_coordinates(mids[k])[0].tolist()
         out.append(Crossing(
-            layer=cut.layer, polarity=polarity, kind=kind, point=(round(mid.x, 6), round(mid.y, 6)),
-            s_trace=trace_line.project(mid), s_centre=centre.project(mid), length=piece.length,
-            angle_deg=angle, corner_distance=corner, bodies=(body_a, body_b),
+            layer=cut.layer, polarity=polarity, kind=kind, point=(round(mx, 6), round(my, 6)),
+            s_trace=float(s_trace[k]), s_centre=float(s_centre[k]), length=piece.length,
+            angle_deg=float(angles[k]), corner_distance=float(corners[k]), bodies=(body_a[k], body_b[k]),
         ))
     return out
 
@@ -92,51 +96,60 @@ def _oriented(piece: LineString, trace: LineString) -> LineString:
     return piece
 
 
-class _Bodies:
-    """Names the copper body a slot-boundary point belongs to: a patch, a bridge, or the plane."""
+def _unit(vectors: np.ndarray) -> np.ndarray:
+    norm = np.hypot(vectors[:, 0], vectors[:, 1])
+    return vectors / np.where(norm > 0, norm, 1.0)[:, None]
+
+
+class SlotIndex:
+    """One cut's slot-boundary edges, copper bodies (patches, bridges) and convex patch corners, indexed.
+
+    Built once per cut (``PlaneCut.slot_index``) and shared by both traces and every re-measure.
+    """
 
     def __init__(self, cut):
-        self.patches = shapely.STRtree(list(cut.patch.geoms))
-        self.bridges = shapely.STRtree(list(cut.bridge.geoms))
-
-    def at(self, point: Point, piece: LineString, entering: bool) -> str:
-        # Step a hair outside the slot, back along the trace, to see which copper it came from / goes to.
-        coords = np.asarray(piece.coords)
-        direction = coords[1] - coords[0] if entering else coords[-1] - coords[-2]
-        direction = direction / (np.linalg.norm(direction) or 1.0)
-        probe = Point(np.asarray(point.coords[0]) + (-1 if entering else 1) * 5 * TOUCH_MM * direction)
-        for name, tree in (("patch", self.patches), ("bridge", self.bridges)):
-            hits = tree.query(probe, predicate="dwithin", distance=TOUCH_MM)
-            if len(hits):
-                return f"{name}{int(min(hits))}"
-        return "plane"
-
-
-class _Edges:
-    """The slot boundary's segments, indexed for the nearest edge to a point."""
-
-    def __init__(self, boundary):
         segs = []
-        for ring in getattr(boundary, "geoms", [boundary]):
+        for ring in getattr(cut.slot.boundary, "geoms", [cut.slot.boundary]):
             c = np.asarray(ring.coords)
             segs.append(np.stack([c[:-1], c[1:]], axis=1))
         self.segments = np.concatenate(segs) if segs else np.zeros((0, 2, 2))
-        self.lines = shapely.linestrings(self.segments)
-        self.tree = shapely.STRtree(self.lines)
+        self.edge_tree = shapely.STRtree(shapely.linestrings(self.segments))
+        self.bodies = (("patch", shapely.STRtree(list(cut.patch.geoms))),
+                       ("bridge", shapely.STRtree(list(cut.bridge.geoms))))
+        corners = _convex_corners(cut.patch)
+        self.corner_tree = shapely.STRtree(corners) if len(corners) else None
 
-    def nearest(self, point: Point) -> tuple[float, np.ndarray]:
-        """(distance, direction vector) of the boundary edge nearest to ``point``."""
-        k = int(self.tree.nearest(point))
+    def nearest_edges(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per point: distance to the nearest boundary edge and that edge's direction vector."""
+        (_, k), dist = self.edge_tree.query_nearest(shapely.points(points), return_distance=True, all_matches=False)
         seg = self.segments[k]
-        return float(point.distance(self.lines[k])), seg[1] - seg[0]
+        return dist, seg[:, 1] - seg[:, 0]
+
+    def bodies_at(self, probes: np.ndarray) -> list[str]:
+        """Name of the copper body under each probe point: ``patch<i>``, ``bridge<i>`` or ``plane``."""
+        names = ["plane"] * len(probes)
+        points = shapely.points(probes)
+        for name, tree in reversed(self.bodies):
+            found, hit = tree.query(points, predicate="dwithin", distance=TOUCH_MM)
+            best: dict[int, int] = {}
+            for i, j in zip(found.tolist(), hit.tolist()):
+                best[i] = min(j, best.get(i, j))
+            for i, j in best.items():
+                names[i] = f"{name}{j}"
+        return names
+
+    def corner_distances(self, bands: np.ndarray) -> np.ndarray:
+        """Per trace band: distance to the nearest convex patch corner (inf without patches)."""
+        if self.corner_tree is None:
+            return np.full(len(bands), math.inf)
+        (_, _), dist = self.corner_tree.query_nearest(bands, return_distance=True, all_matches=False)
+        return dist
 
 
-def _angle(piece: LineString, edge: np.ndarray, first: bool) -> float:
-    """Angle in degrees (0..90) between the trace and the slot edge where it enters or leaves."""
-    c = np.asarray(piece.coords)
-    d = c[1] - c[0] if first else c[-1] - c[-2]
-    cos = abs(float(np.dot(d, edge))) / (np.linalg.norm(d) * np.linalg.norm(edge))
-    return math.degrees(math.acos(min(1.0, cos)))
+def _angles(directions: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """Angles in degrees (0..90) between trace directions and slot edges where the trace enters or leaves."""
+    cos = np.abs(np.einsum("ij,ij->i", directions, edges)) / np.hypot(edges[:, 0], edges[:, 1])
+    return np.degrees(np.arccos(np.minimum(1.0, cos)))
 
 
 def _convex_corners(patch) -> np.ndarray:

@@ -1,7 +1,8 @@
 """The layout object and the one pipeline that builds it.
 
 ``build_layout(spec)`` runs path -> placement (or fold) -> cell builders ->
-board polygons -> traces -> crossings and returns a frozen ``Layout``.  Checks,
+board polygons -> traces and returns a frozen ``Layout``, which measures its
+slot crossings on first use (``Layout.crossings``).  Checks,
 estimates and every exporter read this object; none of them re-derives geometry.
 All polygons are valid shapely geometries on the 1 nm grid with sharp corners.
 """
@@ -9,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import shapely
@@ -16,7 +18,7 @@ from shapely.geometry import LineString, MultiPolygon, Polygon
 from shapely.ops import unary_union
 
 from .cells import BUILDERS
-from .crossing import Crossing, find_crossings
+from .crossing import Crossing, SlotIndex, find_crossings
 from .fold import Turn, fold
 from .path import offset_pieces, polyline_of, to_board, validate_centre_line
 from .placement import place_row
@@ -53,6 +55,11 @@ class PlaneCut:
     def role(self, name: str) -> MultiPolygon:
         return getattr(self, name)
 
+    @cached_property
+    def slot_index(self) -> SlotIndex:
+        """Spatial indexes of the slot edges, copper bodies and patch corners, built once per cut for all traces."""
+        return SlotIndex(self)
+
 
 @dataclass(frozen=True)
 class Trace:
@@ -78,13 +85,21 @@ class Layout:
     route: tuple[Line | Arc, ...]
     route_generated: bool
     turns: tuple[Turn, ...]
-    crossings: tuple[Crossing, ...]
 
     def cut(self, layer: str) -> PlaneCut:
         return next(c for c in self.cuts if c.layer == layer)
 
     def trace(self, polarity: str) -> Trace:
         return next(t for t in self.traces if t.polarity == polarity)
+
+    @cached_property
+    def crossings(self) -> tuple[Crossing, ...]:
+        """Every piece of a trace inside a slot, per cut and trace, measured on first use from the fields above.
+
+        Derived, not stored: a layout given other traces or cuts (``with_copper``) measures them afresh.
+        """
+        return tuple(c for cut in self.cuts for t in self.traces
+                     for c in find_crossings(t.centreline, t.polarity, t.width, cut, self.centreline))
 
     def full_crossings(self, layer: str, polarity: str) -> list[Crossing]:
         return [c for c in self.crossings if c.layer == layer and c.polarity == polarity and c.kind == "full"]
@@ -142,8 +157,7 @@ def build_layout(spec: FilterSpec) -> Layout:
 
     centre = polyline_of(route)
     traces = tuple(_trace(spec, route, polarity) for polarity in ("P", "N"))
-    crossings = tuple(c for cut in cuts for t in traces for c in find_crossings(t.centreline, t.polarity, t.width, cut, centre))
-    return Layout(spec, tuple(cells), cuts, traces, centre, route, generated, turns, crossings)
+    return Layout(spec, tuple(cells), cuts, traces, centre, route, generated, turns)
 
 
 def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Trace:
@@ -173,14 +187,12 @@ def skew_ps(length_mm: float, er_eff: float) -> float:
 
 def with_copper(layout: Layout, traces: tuple[Trace, ...] | None = None,
                 cuts: tuple[PlaneCut, ...] | None = None) -> Layout:
-    """The same layout with other traces and/or cuts (as read from a board), crossings measured again."""
+    """The same layout with other traces and/or cuts (as read from a board); its crossings are measured afresh."""
     from dataclasses import replace
 
     traces = traces if traces is not None else layout.traces
     cuts = cuts if cuts is not None else layout.cuts
-    crossings = tuple(c for cut in cuts for t in traces
-                      for c in find_crossings(t.centreline, t.polarity, t.width, cut, layout.centreline))
-    return replace(layout, traces=traces, cuts=cuts, crossings=crossings)
+    return replace(layout, traces=traces, cuts=cuts)
 
 
 def trace_from_line(polarity: str, net: str, layer: str, width: float, line: LineString) -> Trace:
