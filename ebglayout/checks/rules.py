@@ -18,7 +18,7 @@ from ..crossing import Crossing
 from ..layout import Layout, effective_permittivity, skew_ps
 from ..spec import FilterSpec, TrackObstacle, ViaObstacle
 from . import Finding
-from .widths import min_width, narrower_than
+from .widths import width_check
 
 C0 = 299_792_458.0
 
@@ -221,10 +221,10 @@ def slot_width(layout: Layout, ctx: CheckContext) -> RuleResult:
     r = RuleResult("slot-width", unit="mm", limit=spec.min_slot)
     for cut in layout.cuts:
         r.checked += len(cut.slot.geoms)
-        narrow = min_width(cut.slot)
+        narrow, places = width_check(cut.slot, spec.min_slot)
         if narrow:
             r.see(narrow.width)
-        for place in narrower_than(cut.slot, spec.min_slot):
+        for place in places:
             r.add("error", f"{cut.layer}: slot {place.width:.4g} mm wide (min {spec.min_slot:g})",
                   place.at, place.width, spec.min_slot, cut.layer)
     return r
@@ -246,10 +246,10 @@ def copper_width(layout: Layout, ctx: CheckContext) -> RuleResult:
     for cut in layout.cuts:
         copper = cut_copper(cut)
         r.checked += len(getattr(copper, "geoms", [copper]))
-        narrow = min_width(copper)
+        narrow, places = width_check(copper, spec.min_copper)
         if narrow:
             r.see(narrow.width)
-        for place in narrower_than(copper, spec.min_copper):
+        for place in places:
             r.add("error", f"{cut.layer}: copper neck {place.width:.4g} mm wide (min {spec.min_copper:g})",
                   place.at, place.width, spec.min_copper, cut.layer)
     return r

@@ -147,23 +147,33 @@ def _measure(a, b, t, inward, length, i, j) -> tuple[np.ndarray, np.ndarray, np.
 
 
 def min_width(geometry) -> Narrow | None:
-    """The narrowest place of a (multi)polygon, or None if it has no facing edges.
+    """The narrowest place of a (multi)polygon, or None if it has no facing edges."""
+    return width_check(geometry, 0.0)[0]
 
-    Searched with a growing distance bound (1 mm, doubled for the polygons where
-    nothing narrower was found, until the bound spans the polygon), so a polygon
-    of thousands of edges costs its near edge pairs, not all of them.
+
+def width_check(geometry, limit: float, tolerance: float = 1e-6) -> tuple[Narrow | None, list[Narrow]]:
+    """The narrowest place of a (multi)polygon and the places narrower than ``limit`` (minus a grid tolerance).
+
+    Searched with a growing distance bound (1 mm or ``limit`` if larger, doubled
+    for the polygons where nothing narrower was found, until the bound spans the
+    polygon), so a polygon of thousands of edges costs its near edge pairs, not
+    all of them.  The first pass already holds every place under ``limit``;
+    those come one per distinct location, in polygon order, narrowest first.
     """
     polys = list(getattr(geometry, "geoms", [geometry]))
     if not polys:
-        return None
+        return None, []
     spans = [2 * float(np.hypot(x1 - x0, y1 - y0)) + 1.0 for x0, y0, x1, y1 in (p.bounds for p in polys)]
     smallest: list[Narrow | None] = [None] * len(polys)
-    todo, bound = list(range(len(polys))), 1.0
+    below: list[Narrow] = []
+    todo, bound = list(range(len(polys))), max(1.0, limit)
     while todo:
         near = [k for k in todo if bound < spans[k]]
         results = dict(zip(near, _narrows([polys[k] for k in near], below=bound))) if near else {}
         rest = [k for k in todo if k not in results]
         results.update(zip(rest, _narrows([polys[k] for k in rest])) if rest else ())
+        if not below and limit > 0:
+            below = _distinct(n for k in sorted(results) for n in results[k] if n.width < limit - tolerance)
         todo = []
         for k, widths in results.items():
             if widths and (k in rest or widths[0].width < bound - 1e-6):
@@ -175,18 +185,24 @@ def min_width(geometry) -> Narrow | None:
     for narrow in smallest:
         if narrow is not None and (best is None or narrow.width < best.width):
             best = narrow
-    return best
+    return best, below
 
 
 def narrower_than(geometry, limit: float, tolerance: float = 1e-6) -> list[Narrow]:
     """Places narrower than ``limit`` (minus a grid tolerance), one per distinct location."""
+    polys = list(getattr(geometry, "geoms", [geometry]))
+    if not polys:
+        return []
+    return _distinct(n for narrows in _narrows(polys, below=limit - tolerance) for n in narrows)
+
+
+def _distinct(narrows) -> list[Narrow]:
+    """The first narrow place at each location (rounded to 1 um)."""
     out: list[Narrow] = []
     seen: set[tuple[float, float]] = set()
-    polys = list(getattr(geometry, "geoms", [geometry]))
-    for narrows in (_narrows(polys, below=limit - tolerance) if polys else []):
-        for n in narrows:
-            key = (round(n.at[0], 3), round(n.at[1], 3))
-            if key not in seen:
-                seen.add(key)
-                out.append(n)
+    for n in narrows:
+        key = (round(n.at[0], 3), round(n.at[1], 3))
+        if key not in seen:
+            seen.add(key)
+            out.append(n)
     return out

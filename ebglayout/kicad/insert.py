@@ -6,6 +6,7 @@ stays as it was, so a diff of the board shows only the filter.
 """
 from __future__ import annotations
 
+import functools
 import re
 
 import shapely
@@ -102,9 +103,7 @@ def fill_risks(board_text: str, layout: Layout, plane_net: str = "GND", rules_te
     """
     spec = layout.spec
     risks: list[str] = []
-    children = _children(board_text, source)
-    board_layers = _copper_layers(board_text, children)
-    zones = _board_zones(board_text, children)
+    children, board_layers, zones = _board_facts(board_text, source)
     graphic_patches = spec.style != "bridged"
     present, last = has_rule(rules_text)
     if graphic_patches and not present:
@@ -142,6 +141,13 @@ def fill_risks(board_text: str, layout: Layout, plane_net: str = "GND", rules_te
     return risks
 
 
+@functools.lru_cache(maxsize=4)
+def _board_facts(text: str, source: str) -> tuple[list, list[str], list[dict]]:
+    """(top-level items, copper layers, zones) of a board text, read once for all the filters checked against it."""
+    children = _children(text, source)
+    return children, _copper_layers(text, children), _board_zones(text, children)
+
+
 def _bridged_zone_risks(board_text, children, layout, layer, plane, covering) -> list[str]:
     prefix = area_name(layout) + "_patch"
     ours = [z for z in _footprint_zones(board_text, children) if z["name"].startswith(prefix) and layer in z["layers"]]
@@ -163,7 +169,8 @@ def _narrow_plane(cut, min_width: float, zone_outline):
     if min_width <= 0:
         return None
     r = min_width / 2
-    window = cut.outline.buffer(min_width * 2 + 0.05, quad_segs=32)
+    # A mitred window: its far corners cost no vertices, and what the opening takes there is not near the cut.
+    window = cut.outline.buffer(min_width * 2 + 0.05, join_style="mitre")
     region = window.intersection(zone_outline).difference(cut.outline)
     opened = region.buffer(-r, quad_segs=32).buffer(r, quad_segs=32)
     lost = region.difference(opened)
