@@ -424,17 +424,20 @@ def foreign_via(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("foreign-via", unit="mm", limit=0.0)
     floating = spec.style != "bridged"
-    for via in ctx.vias:
-        disk = Point(via.at).buffer(via.diameter / 2, quad_segs=16)
-        for cut in layout.cuts:
+    if not ctx.vias:
+        return r
+    disks = shapely.buffer(shapely.points([v.at for v in ctx.vias]), [v.diameter / 2 for v in ctx.vias], quad_segs=16)
+    measured = [(cut, shapely.intersects(disks, cut.patch), shapely.distance(disks, cut.slot)) for cut in layout.cuts]
+    for k, via in enumerate(ctx.vias):
+        for cut, through, gaps in measured:
             r.checked += 1
-            if disk.intersects(cut.patch):
+            if through[k]:
                 severity = "error" if floating else "warning"
                 why = ("a plane-net via shorts a floating patch" if via.net == spec.plane_net
                        else "it needs an antipad that reshapes the patch")
                 r.add(severity, f"{cut.layer}: via/pad {via.net or '(no net)'} through a patch: {why}", via.at, layer=cut.layer)
-            elif disk.distance(cut.slot) < via.diameter:
-                gap = disk.distance(cut.slot)
+            elif gaps[k] < via.diameter:
+                gap = float(gaps[k])
                 r.see(gap)
                 r.add("warning", f"{cut.layer}: via/pad {via.net or '(no net)'} {gap:.4g} mm from a slot", via.at,
                       gap, via.diameter, cut.layer)
