@@ -63,7 +63,6 @@ def write_dxf(layout: Layout, path: str | Path, findings: Sequence = ()) -> Path
     path = Path(path)
     with _frozen_metadata():
         doc = build_document(layout, findings)
-        _sort_classes(doc)
         with atomic_path(path) as tmp:
             doc.saveas(tmp)
     return path
@@ -101,6 +100,7 @@ def build_document(layout: Layout, findings: Sequence = ()) -> ezdxf.document.Dr
     _add_dimensions(doc, layout, text_height)
     _add_findings(msp, findings, text_height)
     _add_notes(msp, layout, findings, text_height)
+    _sort_classes(doc)
     return doc
 
 
