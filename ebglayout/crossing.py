@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import shapely
-from shapely.geometry import LineString, Point
+from shapely.geometry import LineString
 from shapely.ops import linemerge
 
 TOUCH_MM = 2e-6
@@ -49,8 +49,7 @@ def find_crossings(trace_line: LineString, polarity: str, trace_width: float, cu
     if not lines:
         return []
     merged = linemerge(lines) if len(lines) > 1 else lines[0]
-    pieces = sorted(getattr(merged, "geoms", [merged]), key=lambda g: trace_line.project(Point(g.coords[0])))
-    pieces = [_oriented(p, trace_line) for p in pieces]
+    pieces = _along(list(getattr(merged, "geoms", [merged])), trace_line)
 
     index = getattr(cut, "slot_index", None) or SlotIndex(cut)
     coords = [np.asarray(p.coords) for p in pieces]
@@ -89,11 +88,15 @@ def find_crossings(trace_line: LineString, polarity: str, trace_width: float, cu
     return out
 
 
-def _oriented(piece: LineString, trace: LineString) -> LineString:
-    """Orient a piece in the trace's direction of travel."""
-    if trace.project(Point(piece.coords[0])) > trace.project(Point(piece.coords[-1])):
-        return LineString(piece.coords[::-1])
-    return piece
+def _along(pieces: list[LineString], trace: LineString) -> list[LineString]:
+    """The pieces in order along the trace, each turned to run in the trace's direction of travel."""
+    s_first = shapely.line_locate_point(trace, shapely.points([p.coords[0] for p in pieces]))
+    s_last = shapely.line_locate_point(trace, shapely.points([p.coords[-1] for p in pieces]))
+    out = []
+    for k in sorted(range(len(pieces)), key=lambda k: s_first[k]):
+        piece = pieces[k]
+        out.append(LineString(piece.coords[::-1]) if s_first[k] > s_last[k] else piece)
+    return out
 
 
 def _unit(vectors: np.ndarray) -> np.ndarray:

@@ -25,11 +25,24 @@ def on_grid(geometry):
     """Snap a shapely geometry to the 1 nm grid and return it without an attached precision model.
 
     Later operations (buffers, probes) must run in full floating precision; a
-    grid carried on the geometry would silently round their results.
+    grid carried on the geometry would silently round their results.  A valid
+    geometry whose vertices already sit on the grid (to float noise) only has
+    its coordinates rounded, as GEOS rounds them (x * 1e6 rounded, / 1e6); any
+    other goes through GEOS's snap-rounding, which keeps the result valid.
     """
+    import numpy as np
     import shapely
 
+    coords = shapely.get_coordinates(geometry)
+    steps = coords * _PER_MM
+    rounded = np.rint(steps)
+    if len(coords) and float(np.abs(steps - rounded).max()) < 1e-3 and shapely.is_valid(geometry):
+        return shapely.set_coordinates(shapely.from_wkb(shapely.to_wkb(geometry)), rounded / _PER_MM)
     return shapely.from_wkb(shapely.to_wkb(shapely.set_precision(geometry, GRID_MM)))
+
+
+_PER_MM = 1e6
+"""Grid steps per mm (1 / GRID_MM, exact), the scale GEOS's fixed precision model rounds with."""
 
 
 def parse_length(value: object, key: str, file_units: str = "mm") -> float:
