@@ -149,15 +149,25 @@ def build_layout(spec: FilterSpec) -> Layout:
             outer=place_polygon(shape.outer, centre, cp.heading),
         ))
 
-    patch = as_multipolygon(unary_union([c.patch for c in cells]))
-    bridge = as_multipolygon(unary_union([b for c in cells for b in c.bridges]))
-    outline = as_multipolygon(unary_union([c.outer for c in cells]))
-    slot = as_multipolygon(outline.difference(unary_union([patch, bridge])))
+    patch = as_multipolygon(_union([c.patch for c in cells]))
+    bridge = as_multipolygon(_union([b for c in cells for b in c.bridges]))
+    outline = as_multipolygon(_union([c.outer for c in cells]))
+    slot = as_multipolygon(outline.difference(unary_union([patch, bridge]) if not bridge.is_empty else patch))
     cuts = tuple(PlaneCut(layer, slot, patch, bridge, outline) for layer in spec.plane_layers)
 
     centre = polyline_of(route)
     traces = tuple(_trace(spec, route, polarity) for polarity in ("P", "N"))
     return Layout(spec, tuple(cells), cuts, traces, centre, route, generated, turns)
+
+
+def _union(polygons: list[Polygon]):
+    """Union of cell polygons; when none touches another (the usual row of separate cells) they are only collected."""
+    if len(polygons) > 1:
+        tree = shapely.STRtree(polygons)
+        first, second = tree.query(polygons, predicate="intersects")
+        if (first != second).any():
+            return unary_union(polygons)
+    return MultiPolygon(polygons)
 
 
 def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Trace:
