@@ -162,38 +162,41 @@ def min_width(geometry) -> Narrow | None:
 def width_check(geometry, limit: float, tolerance: float = 1e-6) -> tuple[Narrow | None, list[Narrow]]:
     """The narrowest place of a (multi)polygon and the places narrower than ``limit`` (minus a grid tolerance).
 
-    Searched with a growing distance bound (1 mm or ``limit`` if larger, doubled
-    for the polygons where nothing narrower was found, until the bound spans the
-    polygon), so a polygon of thousands of edges costs its near edge pairs, not
-    all of them.  The first pass already holds every place under ``limit``;
-    those come one per distinct location, in polygon order, narrowest first.
+    Searched with a growing distance bound (0.25 mm or twice ``limit`` if larger,
+    doubled while nothing narrower was found, until the bound spans the polygon),
+    so a polygon of thousands of edges costs its near edge pairs, not all of them;
+    a polygon whose near pairs hold nothing under the narrowest place found so far
+    cannot hold the narrowest and is not searched further.  The first pass already
+    holds every place under ``limit``: one per distinct location, in polygon
+    order, narrowest first.  Equal widths go to the polygon listed first.
     """
     polys = list(getattr(geometry, "geoms", [geometry]))
     if not polys:
         return None, []
     spans = [2 * float(np.hypot(x1 - x0, y1 - y0)) + 1.0 for x0, y0, x1, y1 in (p.bounds for p in polys)]
-    smallest: list[Narrow | None] = [None] * len(polys)
+    best: tuple[int, Narrow] | None = None
     below: list[Narrow] = []
-    todo, bound = list(range(len(polys))), max(1.0, limit)
+    todo, bound, first = list(range(len(polys))), max(0.25, 2 * limit), True
     while todo:
         near = [k for k in todo if bound < spans[k]]
         results = dict(zip(near, _narrows([polys[k] for k in near], below=bound))) if near else {}
         rest = [k for k in todo if k not in results]
         results.update(zip(rest, _narrows([polys[k] for k in rest])) if rest else ())
-        if not below and limit > 0:
+        if first and limit > 0:
             below = _distinct(n for k in sorted(results) for n in results[k] if n.width < limit - tolerance)
+        first = False
         todo = []
-        for k, widths in results.items():
+        for k in sorted(results):
+            widths = results[k]
             if widths and (k in rest or widths[0].width < bound - 1e-6):
-                smallest[k] = widths[0]
+                if best is None or (widths[0].width, k) < (best[1].width, best[0]):
+                    best = (k, widths[0])
             elif k not in rest:
                 todo.append(k)
+        if best is not None:
+            todo = [k for k in todo if best[1].width >= bound - 1e-6]
         bound *= 2
-    best = None
-    for narrow in smallest:
-        if narrow is not None and (best is None or narrow.width < best.width):
-            best = narrow
-    return best, below
+    return (best[1] if best else None), below
 
 
 def narrower_than(geometry, limit: float, tolerance: float = 1e-6) -> list[Narrow]:
