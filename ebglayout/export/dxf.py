@@ -78,7 +78,7 @@ def _sort_classes(doc: ezdxf.document.Drawing) -> None:
 def build_document(layout: Layout, findings: Sequence = ()) -> ezdxf.document.Drawing:
     """The ezdxf document; call inside ``_frozen_metadata`` when the bytes must be stable."""
     spec = layout.spec
-    doc = ezdxf.new(DXF_VERSION, setup=True, units=INSUNITS_MM)
+    doc = ezdxf.new(DXF_VERSION, units=INSUNITS_MM)  # no standard linetypes/styles/dimstyles: ours suffice
     doc.header["$INSUNITS"] = INSUNITS_MM
     doc.header["$MEASUREMENT"] = 1
     for name, colour in dxf_layers(spec):
