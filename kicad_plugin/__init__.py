@@ -3,7 +3,7 @@
 Copy this folder into KiCad's scripting/plugins folder (or install the package
 that `ebglayout kicad-package` builds through the Plugin and Content Manager).
 KiCad's own Python needs ebglayout's dependencies (numpy, shapely, ezdxf, gdstk,
-scipy, matplotlib): see the README.  If anything is missing, the actions still
+scipy, Pillow): see the README.  If anything is missing, the actions still
 register and explain what to install instead of failing at KiCad's start-up.
 """
 from __future__ import annotations

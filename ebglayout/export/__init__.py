@@ -4,7 +4,7 @@ Every writer reads a built ``Layout`` and never re-derives geometry, so a cut
 lands exactly under its pair.  Each file is written atomically: to a temporary
 file in the same folder, then moved into place, so an error leaves no partial
 file behind.  The submodules are imported on demand, so importing this package
-pulls in neither ezdxf, gdstk nor matplotlib.
+pulls in neither ezdxf, gdstk nor Pillow.
 """
 from __future__ import annotations
 

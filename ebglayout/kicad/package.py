@@ -28,7 +28,7 @@ def metadata(version: str = __version__) -> dict:
             "Select a differential pair's track, run the action and pick an ebglayout spec: the filter's patches, "
             "slots and rule areas appear under the pair in its reference plane(s), with a custom rule that makes "
             "KiCad's zone fill reproduce the cut exactly, and the checks' findings. A second action re-checks every "
-            "filter on the board. Needs numpy, shapely, ezdxf, gdstk, scipy and matplotlib in KiCad's Python. "
+            "filter on the board. Needs numpy, shapely, ezdxf, gdstk, scipy and Pillow in KiCad's Python. "
             "The tool draws, checks and estimates; compliance rests on field solves, measurements, the applicable "
             "EMC standards and the responsible engineer."),
         "identifier": IDENTIFIER,
