@@ -148,10 +148,10 @@ class _Writer:
         self.plane_net = plane_net
         self.priority = zone_priority
         self.design: dict | None = None
-        outline = unary_union([c.outline for c in layout.cuts])
-        if outline.is_empty:
+        outlines = [c.outline for c in layout.cuts]
+        if all(o.is_empty for o in outlines):
             raise SpecError("cut", "(empty)", "the layout has no plane cut to put into a footprint")
-        x0, y0, x1, y1 = outline.bounds
+        x0, y0, x1, y1 = (float(v) for v in shapely.total_bounds(outlines))
         if at is None:
             at = (round((x0 + x1) / 2, 3), round((y0 + y1) / 2, 3))
         self.origin = (_nm(at[0]), _nm(at[1]))
