@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -55,6 +56,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print the JSON report instead of the table")
     p.add_argument("--junit", type=Path, help="also write a JUnit XML file (one test case per rule)")
     p.add_argument("--strict", action="store_true", help="warnings fail too (exit 1)")
+    p.add_argument("--jobs", type=int, default=0, metavar="N",
+                   help="with --board: processes sharing the filters (default: one per usable CPU; 1: no workers)")
 
     p = command("estimate", "estimate where the drawn cut notches (cavity modes, bridged-cell LC, band)")
     p.add_argument("spec", type=Path)
@@ -169,7 +172,7 @@ def _check(args) -> int:
     if args.board is not None:
         from .kicad.workflow import check_board
 
-        reports = check_board(args.board)
+        reports = check_board(args.board, jobs=_jobs(args.jobs))
         if not reports:
             print(f"{args.board}: no ebglayout filters on this board")
     else:
@@ -190,6 +193,15 @@ def _check(args) -> int:
         print("\n\n".join(r.format_table() for r in reports))
     failed = any(r.errors or (args.strict and r.warnings) for r in reports)
     return 1 if failed else 0
+
+
+def _jobs(asked: int) -> int:
+    """Worker processes for --jobs: as asked, or one per CPU this process may run on."""
+    if asked < 0:
+        raise EbgError(f"--jobs: {asked} is not allowed; give 0 (one per usable CPU) or a positive count")
+    if asked:
+        return asked
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
 
 
 def _pairs(args) -> int:

@@ -130,6 +130,14 @@ def _board_cases():
 BOARD_CASES = _board_cases()
 
 
+def test_negative_jobs_exits_2_naming_the_option(capsys):
+    from conftest import SAMPLES
+
+    assert main(["check", "--board", str(SAMPLES / "hx2_hub.kicad_pcb"), "--jobs", "-1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("ebglayout: error: --jobs: -1") and "\n" not in err and "positive count" in err
+
+
 @pytest.mark.parametrize("text, words", [(t, w) for _, t, w in BOARD_CASES], ids=[n for n, _, _ in BOARD_CASES])
 @pytest.mark.parametrize("command", ["pairs", "place", "check"])
 def test_bad_board_exits_2_naming_the_place(tmp_path, capsys, text, words, command):

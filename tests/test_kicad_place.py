@@ -136,3 +136,30 @@ def test_action_plugin_gives_the_same_cut_as_place(pcbnew, board_copy, tmp_path,
     a, _ = fill_board(pcbnew, str(out))
     b, _ = fill_board(pcbnew, str(via_plugin))
     assert a["In1.Cu"].copper.symmetric_difference(b["In1.Cu"].copper).area < 1e-6
+
+
+def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, capsys, monkeypatch):
+    """Filters shared with forked workers give the same reports, in board order, as one process; a filter
+    that fails inside a worker raises its own error here, as the serial run does."""
+    import ebglayout.kicad.workflow as workflow
+
+    plan = tmp_path / "plan.toml"
+    plan.write_text(f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\nmatch = "HX2_L*"\n\n'
+                    f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_USB*"\n')
+    out = tmp_path / "hub_plan.kicad_pcb"
+    assert main(["place", str(board_copy), "--plan", str(plan), "--out", str(out)]) == 0
+    capsys.readouterr()
+    monkeypatch.setattr(workflow, "FILTERS_PER_PROCESS", 1)
+    serial = [r.to_json() for r in check_board(out, jobs=1)]
+    assert len(serial) == 3
+    assert [r.to_json() for r in check_board(out, jobs=2)] == serial
+    assert [r.to_json() for r in check_board(out, jobs=3)] == serial
+
+    text = out.read_text()
+    broken = tmp_path / "hub_broken.kicad_pcb"
+    last = text.rfind('(property "ebglayout_spec"')
+    broken.write_text(text[:last] + text[last:].replace('\\"slot\\":', '\\"slot\\":-', 1))
+    with pytest.raises(Exception) as serial_error:
+        check_board(broken, jobs=1)
+    with pytest.raises(type(serial_error.value), match=str(serial_error.value).split(":")[0]):
+        check_board(broken, jobs=2)

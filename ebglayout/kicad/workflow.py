@@ -11,6 +11,7 @@ import bisect
 import fnmatch
 import json
 import math
+import multiprocessing
 import re
 import tomllib
 from dataclasses import dataclass, field, replace
@@ -412,10 +413,31 @@ def _moved(layout: Layout, footprint) -> Layout:
     return replace(with_copper(layout, cuts=cuts), cells=cells)
 
 
-def check_board(board_path: str | Path) -> list[CheckReport]:
-    """`ebglayout check --board`: every placed filter re-checked against the board's copper as it is now."""
-    from ..estimate.band import estimate_layout
+FILTERS_PER_PROCESS = 4
+"""Fewest filters worth a forked worker for `check --board` (a fork and its copy-on-write pages cost about one)."""
 
+
+@dataclass
+class _Recheck:
+    """What every filter's re-check on one board reads: the board, its pairs, rule file, references and texts."""
+
+    board: Board
+    designs: list
+    pairs: list
+    rules: str | None
+    references: dict
+    texts: BoardTexts
+
+
+def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
+    """`ebglayout check --board`: every placed filter re-checked against the board's copper as it is now.
+
+    ``jobs`` > 1 shares the filters between this process and ``jobs - 1`` forked
+    workers (where the platform forks; never inside KiCad, whose plugin passes 1),
+    at least ``FILTERS_PER_PROCESS`` filters each.  Reports come back in board order either way; a
+    filter whose check fails in a worker is checked again here, so its error is
+    raised exactly as a serial run raises it.
+    """
     board = read_board(board_path)
     designs = placed_designs(board)
     if not designs:
@@ -423,27 +445,59 @@ def check_board(board_path: str | Path) -> list[CheckReport]:
     pairs = find_pairs(board, only={net for _, design in designs for net in _design_nets(design)})
     rules_path = Path(board_path).with_suffix(".kicad_dru")
     rules = rules_path.read_text(encoding="utf-8") if rules_path.exists() else None
-    references, texts = reference_planes(board), BoardTexts(board)
-    reports = []
-    for footprint, design in designs:
-        spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
-        layout = _moved(build_layout(spec), footprint)
-        match = [bp for bp in pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
-        if match:
-            pair = max(match, key=lambda bp: bp.length)
-            layout = with_copper(layout, traces=board_traces(board, layout, pair))
-        estimate = estimate_layout(layout)
-        context = board_context(board, layout, match[0], estimate, references) if match \
-            else CheckContext(estimate=estimate)
-        report = run_checks(layout, context, estimate=estimate)
-        fill = RuleResult("kicad-fill", checked=1, unit="")
-        for risk in fill_risks(texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, rules):
-            fill.add("warning", risk, layout.cells[0].centre)
-        if not match:
-            fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
-                     f"{spec.pair_layer}", layout.cells[0].centre)
-        reports.append(replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,)))
-    return reports
+    job = _Recheck(board, designs, pairs, rules, reference_planes(board), BoardTexts(board))
+    jobs = max(1, min(jobs, len(designs) // FILTERS_PER_PROCESS))
+    # The first filter is checked here before any fork, which also builds the board's lazy indexes and texts
+    # once for every worker to inherit.
+    reports = [_recheck(job, 0)]
+    if jobs == 1 or "fork" not in multiprocessing.get_all_start_methods():
+        return reports + [_recheck(job, k) for k in range(1, len(designs))]
+    global _RECHECK
+    share = -(-len(designs) // jobs)
+    _RECHECK = job
+    try:
+        with multiprocessing.get_context("fork").Pool(jobs - 1) as pool:
+            pending = pool.map_async(_recheck_in_worker, range(share, len(designs)), chunksize=share)
+            reports += [_recheck(job, k) for k in range(1, share)]
+            theirs = pending.get()
+    finally:
+        _RECHECK = None
+    return reports + [r if r is not None else _recheck(job, k) for k, r in enumerate(theirs, start=share)]
+
+
+_RECHECK: _Recheck | None = None
+"""The job a forked worker inherits (set only while the pool runs)."""
+
+
+def _recheck_in_worker(index: int) -> CheckReport | None:
+    try:
+        return _recheck(_RECHECK, index)
+    except Exception:  # noqa: BLE001 - the parent checks this filter again and raises the real error
+        return None
+
+
+def _recheck(job: _Recheck, index: int) -> CheckReport:
+    """One placed filter against the board: rebuilt from its stored design, moved to the footprint, measured."""
+    from ..estimate.band import estimate_layout
+
+    board, (footprint, design) = job.board, job.designs[index]
+    spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
+    layout = _moved(build_layout(spec), footprint)
+    match = [bp for bp in job.pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
+    if match:
+        pair = max(match, key=lambda bp: bp.length)
+        layout = with_copper(layout, traces=board_traces(board, layout, pair))
+    estimate = estimate_layout(layout)
+    context = board_context(board, layout, match[0], estimate, job.references) if match \
+        else CheckContext(estimate=estimate)
+    report = run_checks(layout, context, estimate=estimate)
+    fill = RuleResult("kicad-fill", checked=1, unit="")
+    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, job.rules):
+        fill.add("warning", risk, layout.cells[0].centre)
+    if not match:
+        fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
+                 f"{spec.pair_layer}", layout.cells[0].centre)
+    return replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,))
 
 
 def _design_nets(design: dict) -> list[str]:
