@@ -1,11 +1,14 @@
 """Read a .kicad_pcb board without KiCad: layers, stack-up, nets, tracks, vias, zones, footprints, board edge.
 
 Speed matters (boards of 100k segments): the whole file is checked once by
-``sexpr.scan``; segments, arcs and vias are pulled with one regular-expression
-pass each straight into numpy arrays, and only the small sections that need
-structure (setup, layers, nets, zones, footprints, board-edge drawings) are
-parsed into trees.  An item the fast pattern does not recognise (an unusual
-field order, a newer token) is parsed through the tree instead, so the fast
+``sexpr.scan``; segments, arcs and vias are then read in bulk from its
+parenthesis offsets, in chunks (byte-level helpers in ``fields.py``): each field's text is cut out as a fixed-width
+numpy window, checked, and all numbers of a chunk are converted by one
+``np.fromstring`` (the routine behind ``float``; a text equal to the one before
+it is converted once).  Only the small sections that need structure (setup,
+layers, nets, zones, footprints, board-edge drawings) are parsed into trees.
+An item the bulk reader cannot vouch for (an unusual field order or spelling,
+a newer token, a bad value) is parsed through the tree instead, so the fast
 path never decides what is read, only how fast.
 
 Dialects: KiCad 6 (20211014), 7 (20221018), 8 (20240108), 9 (20241229) and the
@@ -31,6 +34,8 @@ from shapely.geometry import LineString, MultiPolygon, Polygon
 from ..errors import BoardError
 from ..path import piece_points
 from ..spec import Arc
+from .fields import (ALTERNATE_WORD, CHUNK, KEEP, MASK, MAX_FIELD, SPACES, Distinct, FieldRows, all_blank, block_floats,
+                     byte_window, field_texts, first_row_of, index_ranges, prefix8, row_floats, word_patterns)
 from .sexpr import Quoted, Structure, _heads, error_at, scan, unescape
 
 VERSIONS = {20211014: "6.0", 20221018: "7.0", 20240108: "8.0", 20241229: "9.0"}
@@ -50,36 +55,20 @@ KNOWN_TOP = frozenset({
 })
 
 _NUM = rb"[-+0-9.eE]+"
-_ONE = rb"(" + _NUM + rb")\s*"
 _TWO = rb"(" + _NUM + rb"\s+" + _NUM + rb")\s*"
 _NAME = rb'("(?:[^"\\]|\\.)*"|[^\s()"]+)\s*'
-_NAMES = rb'((?:(?:"(?:[^"\\]|\\.)*"|[^\s()"]+)\s*){2,})'
-_NET = rb'\(net\s+(\d+|"(?:[^"\\]|\\.)*")\s*\)'
 _LOCKED = rb"(?:\(locked(?:\s+\w+)?\s*\)\s*)?"
-_SEGMENT = re.compile(
-    rb"\(segment\s+(?:locked\s+)?\(start\s+" + _TWO + rb"\)\s*\(end\s+" + _TWO + rb"\)\s*\(width\s+" + _ONE
-    + rb"\)\s*" + _LOCKED + rb"\(layer\s+" + _NAME + rb"\)\s*" + _LOCKED + _NET)
-_ARC = re.compile(
-    rb"\(arc\s+(?:locked\s+)?\(start\s+" + _TWO + rb"\)\s*\(mid\s+" + _TWO + rb"\)\s*\(end\s+" + _TWO
-    + rb"\)\s*\(width\s+" + _ONE + rb"\)\s*" + _LOCKED + rb"\(layer\s+" + _NAME + rb"\)\s*" + _LOCKED + _NET)
-_VIA = re.compile(
-    rb"\(via\s+((?:[a-z_]+\s+)*)\(at\s+" + _TWO + rb"\)\s*\(size\s+" + _ONE + rb"\)\s*\(drill\s+" + _ONE
-    + rb"\)\s*\(layers\s+" + _NAMES + rb"\)\s*(?:\([a-z_]+(?:\s+[^\s()]+)*\s*\)\s*)*?" + _NET)
 _PAD = re.compile(
     rb"\(pad\s+" + _NAME + rb"([a-z_]+)\s+([a-z_]+)\s+(?:locked\s+)?\(at\s+" + _TWO + rb"(?:(" + _NUM
     + rb")\s*)?\)\s*" + _LOCKED + rb"\(size\s+" + _TWO + rb"\)")
-_W1 = rb"([^\s()]+)"
-_W2 = rb"([^\s()]+ [^\s()]+)"
-_SEGMENT_WRITER = re.compile(rb"\(segment \(start " + _W2 + rb"\) \(end " + _W2 + rb"\) \(width " + _W1
-                             + rb"\) \(layer ([^()]*)\) \(net ([^()]*)\)")
-_ARC_WRITER = re.compile(rb"\(arc \(start " + _W2 + rb"\) \(mid " + _W2 + rb"\) \(end " + _W2 + rb"\) \(width "
-                         + _W1 + rb"\) \(layer ([^()]*)\) \(net ([^()]*)\)")
-_VIA_WRITER = re.compile(rb"\(via ((?:[a-z]+ )*)\(at " + _W2 + rb"\) \(size " + _W1 + rb"\) \(drill " + _W1
-                         + rb"\) \(layers ([^()]*)\) (?:\([a-z_]+\) )*\(net ([^()]*)\)")
-"""The one-line forms KiCad 6/7 write, tried first because they match fastest.  Number fields hold exactly
-one or two tokens, as in the general patterns; names are looked up afterwards like every other row."""
+_SEGMENT_FIELDS = (("start", 2, True), ("end", 2, True), ("width", 1, True), ("layer", 1, False), ("net", 1, False))
+_ARC_FIELDS = (("start", 2, True), ("mid", 2, True), ("end", 2, True), ("width", 1, True), ("layer", 1, False),
+               ("net", 1, False))
+_VIA_FIELDS = (("at", 2, True), ("size", 1, True), ("drill", 1, True), ("layers", 2, False), ("net", 1, False))
+"""Fields read from each track item: head, how many values, numeric; tree rows give them in this order."""
 _STRING_TOKEN = re.compile(rb'"(?:[^"\\]|\\.)*"|[^\s"]+')
 _NET_NAME = re.compile(rb'\(net\s+"((?:[^"\\]|\\.)*)"\s*\)')
+_NET_DECLARATION = re.compile(rb'\(net\s+([^\s()"]+)\s+("(?:[^"\\]|\\.)*"|[^\s()"]+)\s*\)')
 _XY = re.compile(rb"\(xy\s+([^()]*)\)")
 
 
@@ -493,7 +482,7 @@ class _Reader:
         self.s = s
         self.data = s.data
         self.warnings: list[str] = []
-        self.head_names = {h: h.decode("utf-8", "replace") for h in np.unique(s.heads).tolist()}
+        self.head_names = {h: h.decode("utf-8", "replace") for h in s.head_kinds()[1]}
         self._children: dict[tuple[int, ...], tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
 
     def fail(self, offset: int, what: str) -> BoardError:
@@ -562,7 +551,7 @@ class _Reader:
     def _nets(self) -> tuple[list[str], dict[int, int]]:
         """Net table: declared (code, name) pairs (6-9), then names used by reference (10)."""
         nets, codes, codes_by_name = [""], {0: 0}, {"": 0}
-        for node, start in self.tree("net"):
+        for node, start in self._net_declarations():
             if len(node) < 3:
                 raise self.fail(start, f"bad net declaration {_show(node)}: expected (net CODE \"NAME\")")
             try:
@@ -584,6 +573,15 @@ class _Reader:
                 known.add(name)
                 nets.append(name)
         return nets, codes
+
+    def _net_declarations(self) -> list[tuple[list, int]]:
+        """The (net CODE NAME) items as trees; written the plain way they are read by one pattern pass."""
+        spans = self.s.spans_of("net")
+        if len(spans):
+            found = list(_NET_DECLARATION.finditer(self.data, int(spans[0, 0]), int(spans[-1, 1])))
+            if len(found) == len(spans) and all(m.span() == (a, b) for m, (a, b) in zip(found, spans.tolist())):
+                return [(["net", m.group(1).decode("utf-8"), _atom_text(m.group(2))], m.start()) for m in found]
+        return self.tree("net")
 
     def net_of(self, token, offset: int) -> int:
         """Net index of a net reference: a code (6-9) or a quoted name (10)."""
@@ -635,7 +633,217 @@ class _Reader:
             return None
         return Stackup(tuple(copper), tuple(dielectrics))
 
-    # ---- tracks and vias: one regular-expression pass each, straight into numpy ----
+    # ---- tracks and vias: located from the structure scan, numbers converted in one C call ----
+
+    def _track_rows(self, head: str, fields: tuple[tuple[str, int, bool], ...], tree_row,
+                    words: bool = False) -> FieldRows:
+        """Field values of every item with this head, in file order.
+
+        Numbers come out as one float array (converted like ``float``, so exact);
+        other fields as codes into their distinct texts, each text the field's
+        first ``count`` tokens as the tree reads them.  Rows the bulk reader cannot
+        vouch for (see ``_locate``) are parsed as trees, which also raise the
+        errors; with ``words`` the tree row starts with the item's bare words.
+        Items are read in chunks so the temporary arrays stay small and reused.
+        """
+        spans = self.s.spans_of(head)
+        codes_of, names = self.s.head_kinds()
+        key = head.encode()
+        items = np.flatnonzero(codes_of == names.index(key)) if key in names else np.zeros(0, np.int64)
+        n = len(spans)
+        numeric = [k for k, f in enumerate(fields) if f[2]]
+        counts = tuple(fields[k][1] for k in numeric)
+        heads = [fields[k][0] for k in numeric]
+        follows = {heads.index("start"): heads.index("end")} if "start" in heads and "end" in heads else {}
+        texts = [k for k, f in enumerate(fields) if not f[2]]
+        # np.full writes the arrays once, front to back: filling them chunk by chunk later faults pages in far slower
+        numbers = np.full((n, sum(counts)), 0.0)
+        codes = np.full((n, len(texts)), 0, np.int64)
+        kind_codes = np.full(n if words else 0, 0, np.int64)
+        sure = np.full(n, False)
+        distinct = [Distinct() for _ in texts]
+        kinds = Distinct()
+        for a in range(0, n, CHUNK):
+            part = slice(a, a + CHUNK)
+            starts, lengths, ok, gap = self._locate(items[part], len(key), tuple(f[0] for f in fields), words)
+            ok = self._bulk_numbers(starts[:, numeric], lengths[:, numeric], counts, ok, numbers[part], follows)
+            rows = np.flatnonzero(ok)
+            if len(rows) and texts:
+                found = field_texts(self.data, starts[rows][:, texts], lengths[rows][:, texts], distinct)
+                codes[part][rows] = found
+                for j, k in enumerate(texts):
+                    rejected = np.array([v is None for v in distinct[j].normal(fields[k][1])], dtype=bool)
+                    ok[rows[rejected[found[:, j]]]] = False
+            if words and len(rows):
+                kind_codes[part][rows] = field_texts(self.data, gap[rows, :1], gap[rows, 1:], [kinds])[:, 0]
+            sure[part] = ok
+        for i in np.flatnonzero(~sure).tolist():
+            a, b = (int(v) for v in spans[i])
+            row = tree_row(self.s.parse(a, b), a)
+            if words:
+                kind_codes[i] = kinds.put(row[0])
+                row = row[1:]
+            values = _row_numbers(row, tuple(numeric), counts)
+            if values is None:
+                raise self.fail(a, f"{head} item with a field that is not a number")
+            numbers[i] = values
+            for j, k in enumerate(texts):
+                codes[i, j] = distinct[j].put(row[k])
+        return FieldRows(spans, numbers, [(codes[:, j], d.normal(fields[k][1])) for j, (d, k) in
+                                      enumerate(zip(distinct, texts))],
+                     (kind_codes, [_via_kind(w) for w in kinds.words()]) if words else None)
+
+    def _locate(self, rows: np.ndarray, head_length: int, heads: tuple[str, ...], words: bool):
+        """Where each wanted field's values start and how long they are (n, fields), for these top-level items.
+
+        A row is sure when each wanted field is its first child with that head,
+        written "(head " and holding no list.  Most items have the fields as their
+        first children in the wanted order (KiCad's writer), which a few array
+        lookups confirm; the rest are looked up by name among their children.
+        With ``words``, every gap between the item's children must be blank; the
+        gap after the item's own head (where KiCad writes "blind" or "micro") is
+        returned as (start, length) per row.
+        """
+        s = self.s
+        o2, c2 = s.level_index(2)
+        first, last = o2[rows], c2[rows]
+        words_of = [name.encode() for name in heads]
+        many = 2 * len(heads)
+        width = 8 * -(-many // 8)
+        sure = (last - first > many) & (first + width < len(s.step))
+        starts = np.zeros((len(rows), len(heads)), s.paren.dtype)
+        lengths = np.zeros_like(starts)
+        if sure.any():
+            at = np.where(sure, first + 1, 0)
+            steps = byte_window(s.step, width)[at].view(np.uint64)
+            for j in range(steps.shape[1]):
+                keep = min(8, many - 8 * j)
+                sure &= (steps[:, j] & MASK[keep]) == (ALTERNATE_WORD & MASK[keep])
+            del steps
+            parens = byte_window(s.paren, many)[at]
+            starts[:] = parens[:, 0::2] + np.array([len(w) + 2 for w in words_of], dtype=parens.dtype)
+            lengths[:] = parens[:, 1::2] - starts
+            found = prefix8(self.data, parens[:, 0::2] + 1)
+            del parens
+            for k, word in enumerate(words_of):
+                sure &= (found[:, k] & MASK[len(word) + 1]) == word_patterns([word], b" ")[0]
+            del found
+        other = np.flatnonzero(~sure)
+        if len(other):
+            sure[other] = self._locate_by_name(first[other], last[other], words_of, starts, lengths, other)
+        gap = None
+        if words:
+            gap = np.empty((len(rows), 2), np.int64)
+            gap[:, 0] = s.paren[first] + (head_length + 1)
+            gap[:, 1] = s.paren[np.minimum(first + 1, last)] - gap[:, 0]
+            done = np.flatnonzero(sure)
+            sure[done] = self._blank_between(first[done], last[done])
+        return starts, lengths, sure, gap
+
+    def _locate_by_name(self, first: np.ndarray, last: np.ndarray, words: list[bytes], starts: np.ndarray,
+                        lengths: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """``_locate`` for items in another field order: each field is the first child with its head.
+
+        Sure only where every child begins with a bare lower-case word and none is
+        another spelling of a wanted head ("(start\\t", "(layers"...), so the tree
+        cannot take a different child for a field.
+        """
+        s = self.s
+        n = len(rows)
+        index, owner = index_ranges(first + 1, last)
+        depth, step = s.depth[index], s.step[index]
+        child = (depth == 3) & (step > 0)
+        co, cc, row_of = index[child], index[(depth == 2) & (step < 0)], owner[child]
+        op = s.paren[co].astype(np.int64)
+        cl = s.paren[cc].astype(np.int64)
+        flat = cc == co + 1
+        pre = prefix8(self.data, op + 1)
+        sure = np.ones(n, dtype=bool)
+        sure[row_of[(pre & np.uint64(0xFF)) - np.uint64(97) >= np.uint64(26)]] = False
+        for k, word in enumerate(words):
+            exact = (pre & MASK[len(word) + 1]) == word_patterns([word], b" ")[0]
+            near = ((pre & MASK[len(word)]) == word_patterns([word], b"")[0]) & ~exact
+            sure[row_of[near]] = False
+            hit = np.flatnonzero(exact)
+            r = row_of[hit]
+            if len(r):
+                keep = np.ones(len(r), dtype=bool)
+                np.not_equal(r[1:], r[:-1], out=keep[1:])
+                hit, r = hit[keep], r[keep]
+            found = np.zeros(n, dtype=bool)
+            found[r] = flat[hit]
+            sure &= found
+            starts[rows[r], k] = op[hit] + (len(word) + 2)
+            lengths[rows[r], k] = cl[hit] - starts[rows[r], k]
+        return sure
+
+    def _blank_between(self, first: np.ndarray, last: np.ndarray) -> np.ndarray:
+        """True for items (paren indices of their "(" and ")") whose children are separated by blanks only."""
+        s = self.s
+        index, owner = index_ranges(first, last + 1)
+        after = np.flatnonzero((s.depth[index] == 2) & (s.step[index] < 0))
+        ends = s.paren[index[after + 1]].astype(np.int64)
+        blank = all_blank(self.data, s.paren[index[after]].astype(np.int64) + 1, ends)
+        sure = np.ones(len(first), dtype=bool)
+        sure[owner[after[~blank]]] = False
+        return sure
+
+    def _bulk_numbers(self, starts: np.ndarray, lengths: np.ndarray, counts: tuple[int, ...], sure: np.ndarray,
+                      out: np.ndarray, follows: dict[int, int] | None = None) -> np.ndarray:
+        """Numbers of the sure rows into ``out``; a row whose fields are not ``counts`` plain numbers becomes unsure.
+
+        Every field of a row is cut out of the file as a fixed-width block padded
+        with spaces and must hold ``counts[k] - 1`` spaces and no control
+        character (tabs, line ends); all blocks then go through ``np.fromstring``
+        (see ``block_floats``).  It converts with the routine behind ``float``
+        (so bit for bit equal) and must read every byte, so each token gives one
+        number or more, and a field holds at most spaces + 1 tokens: the total
+        count proves every field gave exactly its count.  Anything else (a name,
+        "1_0", "1e5e3", "1 ") fails and is re-read through the tree.
+        """
+        sure = sure & ((lengths > 0) & (lengths <= MAX_FIELD)).all(axis=1)
+        rows = np.flatnonzero(sure)
+        if not len(rows) or not counts:
+            return sure
+        size = len(self.data)
+        width = 8 * (int(lengths[rows].max()) // 8 + 1)
+        if int(starts[rows].max()) + width > size:
+            sure[rows[(starts[rows] + width > size).any(axis=1)]] = False
+            rows = np.flatnonzero(sure)
+        if not len(rows):
+            return sure
+        length = lengths[rows]
+        block = byte_window(self.data, width)[starts[rows]]
+        keep = KEEP[width // 8][length]
+        words = block.view(np.uint64)
+        words &= keep
+        words |= ~keep & SPACES
+        del keep, words
+        inner = np.count_nonzero(block == 32, axis=-1) - (width - length)
+        good = inner[:, 0] == counts[0] - 1
+        for k in range(1, len(counts)):
+            good &= inner[:, k] == counts[k] - 1
+        del inner
+        if block.min() < 32:
+            good &= block.reshape(len(rows), -1).min(axis=1) >= 32
+        if not good.all():
+            sure[rows[~good]] = False
+            rows, block = rows[good], block[good]
+        values = block_floats(block, counts, follows)
+        if values is None:
+            total = sum(counts)
+            values = np.array([row_floats(line, total) for line in block.reshape(len(rows), -1)]).reshape(-1, total)
+        if not np.isfinite(values).all():
+            finite = np.isfinite(values).all(axis=1)
+            sure[rows[~finite]] = False
+            rows, values = rows[finite], values[finite]
+        if len(rows) == len(out):
+            out[:] = values
+        else:
+            out[rows] = values
+        return sure
+
+    # ---- pads: one regular-expression pass, straight into numpy ----
 
     def _fast(self, spans: np.ndarray, patterns: tuple[re.Pattern, ...], tree_row) -> list[tuple]:
         """One row of field texts per item; items the patterns miss are read from their tree."""
@@ -697,55 +905,79 @@ class _Reader:
         m = re.compile(rb"\(\s*([^\s()\"]+)").match(self.data, start)
         return m.group(1).decode("utf-8", "replace") if m else "?"
 
-    def _layer_column(self, values: list[bytes], spans: np.ndarray, what: str) -> np.ndarray:
-        first = _first_rows(values)
-        lut = {}
-        for v, row in first.items():
+    def _layer_lut(self, names: list[bytes | None]) -> tuple[np.ndarray, list[int]]:
+        """Copper-layer index of each distinct layer text (-1 where unused), and the texts that are no copper layer."""
+        lut = np.full(len(names), -1, dtype=np.int16)
+        bad = []
+        for i, v in enumerate(names):
+            if v is None:
+                continue
             name = _text(v.strip())
-            if name not in self.copper:
+            if name in self.copper:
+                lut[i] = self.copper.index(name)
+            else:
+                bad.append(i)
+        return lut, bad
+
+    def _layer_column(self, codes: np.ndarray, names: list[bytes | None], spans: np.ndarray, what: str) -> np.ndarray:
+        """Copper-layer index per row; the first row (file order) on a layer that is no copper layer is an error."""
+        lut, bad = self._layer_lut(names)
+        if bad:
+            row = first_row_of(codes, bad)
+            if row is not None:
+                name = _text(names[int(codes[row])].strip())
                 raise self.fail(int(spans[row, 0]),
                                 f"{what} on layer {name!r}, which is not a copper layer of this board")
-            lut[v] = self.copper.index(name)
-        return np.array([lut[v] for v in values], dtype=np.int16)
+        return lut[codes]
 
-    def _net_column(self, values: list[bytes], spans: np.ndarray) -> np.ndarray:
-        lut = {v: self.net_of(v.decode("utf-8"), int(spans[row, 0])) for v, row in _first_rows(values).items()}
-        return np.array([lut[v] for v in values], dtype=np.int32)
+    def _net_column(self, codes: np.ndarray, names: list[bytes | None], spans: np.ndarray) -> np.ndarray:
+        """Net index per row; the first row (file order) naming an unknown net is an error."""
+        lut = np.zeros(len(names), dtype=np.int32)
+        bad = []
+        for i, v in enumerate(names):
+            if v is None:
+                continue
+            try:
+                lut[i] = self.net_of(v.decode("utf-8"), 0)
+            except BoardError:
+                bad.append(i)
+        if bad:
+            row = first_row_of(codes, bad)
+            if row is not None:
+                self.net_of(names[int(codes[row])].decode("utf-8"), int(spans[row, 0]))
+        return lut[codes]
 
     def _segments(self) -> Segments:
-        spans = self.s.spans_of("segment")
-        rows = self._fast(spans, (_SEGMENT_WRITER, _SEGMENT), self._segment_tree)
-        nums = self._numbers(rows, spans, (0, 1, 2), (2, 2, 1), self._segment_tree)
-        return Segments(nums[:, 0:2], nums[:, 2:4], nums[:, 4],
-                        self._layer_column([r[3] for r in rows], spans, "segment"),
-                        self._net_column([r[4] for r in rows], spans), spans)
+        r = self._track_rows("segment", _SEGMENT_FIELDS, self._segment_tree)
+        nums = r.numbers
+        return Segments(nums[:, 0:2], nums[:, 2:4], nums[:, 4], self._layer_column(*r.texts[0], r.spans, "segment"),
+                        self._net_column(*r.texts[1], r.spans), r.spans)
 
     def _arcs(self) -> Arcs:
-        spans = self.s.spans_of("arc")
-        rows = self._fast(spans, (_ARC_WRITER, _ARC), self._arc_tree)
-        nums = self._numbers(rows, spans, (0, 1, 2, 3), (2, 2, 2, 1), self._arc_tree)
+        r = self._track_rows("arc", _ARC_FIELDS, self._arc_tree)
+        nums = r.numbers
         return Arcs(nums[:, 0:2], nums[:, 2:4], nums[:, 4:6], nums[:, 6],
-                    self._layer_column([r[4] for r in rows], spans, "arc"),
-                    self._net_column([r[5] for r in rows], spans), spans)
+                    self._layer_column(*r.texts[0], r.spans, "arc"), self._net_column(*r.texts[1], r.spans), r.spans)
 
     def _vias(self) -> Vias:
-        spans = self.s.spans_of("via")
-        rows = self._fast(spans, (_VIA_WRITER, _VIA), self._via_tree)
-        nums = self._numbers(rows, spans, (1, 2, 3), (2, 1, 1), self._via_tree)
-        pairs, cache = [], {}
-        for i, r in enumerate(rows):
-            pair = cache.get(r[4])
-            if pair is None:
-                names = _STRING_TOKEN.findall(r[4])
-                if len(names) < 2:
-                    raise self.fail(int(spans[i, 0]), "via without two layers in (layers ...)")
-                pair = cache[r[4]] = (names[0], names[-1])
-            pairs.append(pair)
-        tops = self._layer_column([p[0] for p in pairs], spans, "via")
-        bottoms = self._layer_column([p[1] for p in pairs], spans, "via")
-        layers = np.sort(np.column_stack([tops, bottoms]), axis=1) if rows else np.zeros((0, 2), np.int16)
-        return Vias(nums[:, 0:2], nums[:, 2], nums[:, 3], layers, tuple(_via_kind(r[0]) for r in rows),
-                    self._net_column([r[5] for r in rows], spans), spans)
+        r = self._track_rows("via", _VIA_FIELDS, self._via_tree, words=True)
+        nums, spans = r.numbers, r.spans
+        codes, texts = r.texts[0]
+        pairs: list[tuple[bytes, bytes] | None] = []
+        lonely = []
+        for i, v in enumerate(texts):
+            names = _STRING_TOKEN.findall(v) if v is not None else []
+            if v is not None and len(names) < 2:
+                lonely.append(i)
+            pairs.append((names[0], names[-1]) if len(names) >= 2 else None)
+        if lonely and (row := first_row_of(codes, lonely)) is not None:
+            raise self.fail(int(spans[row, 0]), "via without two layers in (layers ...)")
+        tops = self._layer_column(codes, [p[0] if p else None for p in pairs], spans, "via")
+        bottoms = self._layer_column(codes, [p[1] if p else None for p in pairs], spans, "via")
+        layers = np.sort(np.column_stack([tops, bottoms]), axis=1) if len(spans) else np.zeros((0, 2), np.int16)
+        kind_codes, kind_names = r.kinds
+        kinds = tuple(kind_names[c] for c in kind_codes.tolist())
+        return Vias(nums[:, 0:2], nums[:, 2], nums[:, 3], layers, kinds, self._net_column(*r.texts[1], spans), spans)
 
     def _field(self, node: list, head: str, count: int, start: int, numeric: bool = True) -> bytes:
         child = _child(node, head)
@@ -851,14 +1083,14 @@ class _Reader:
         items = s.items[rows]
         if not len(items):
             return np.zeros((0, 2), np.int64), np.zeros(0, dtype="S20"), np.zeros(0, np.int64)
-        first = np.searchsorted(s.paren, items[:, 0])
-        count = np.searchsorted(s.paren, items[:, 1] - 1) + 1 - first
-        index = np.repeat(first - np.cumsum(count) + count, count) + np.arange(int(count.sum()))
+        o2, c2 = s.level_index(2)
+        index, owner = index_ranges(o2[rows], c2[rows] + 1)
         paren, depth, step = s.paren[index], s.depth[index], s.step[index]
-        opens = paren[(depth == 3) & (step > 0)]
-        closes = paren[(depth == 2) & (step < 0)]
-        owner = rows[np.searchsorted(items[:, 0], opens, side="right") - 1]
-        spans = np.column_stack([opens, closes[:len(opens)] + 1]).astype(np.int64)
+        child = (depth == 3) & (step > 0)
+        opens = paren[child].astype(np.int64)
+        closes = paren[(depth == 2) & (step < 0)].astype(np.int64)
+        owner = rows[owner[child]]
+        spans = np.column_stack([opens, closes[:len(opens)] + 1])
         found = (spans, _heads(np.frombuffer(self.data, dtype=np.uint8), opens), owner)
         self._children[key] = found
         return found
@@ -967,9 +1199,10 @@ class _Reader:
     def _outline(self) -> Polygon | MultiPolygon | None:
         open_lines: list[np.ndarray] = []
         rings: list[np.ndarray] = []
-        graphic = np.char.startswith(self.s.heads, b"gr_") if len(self.s.heads) else np.zeros(0, bool)
+        codes, names = self.s.head_kinds()
+        graphic = np.isin(codes, [i for i, name in enumerate(names) if name.startswith(b"gr_")])
         for a, b in self.s.items[graphic].tolist():
-            if b"Edge.Cuts" in self.data[a:b]:
+            if self.data.find(b"Edge.Cuts", a, b) >= 0:
                 node = self.s.parse(a, b)
                 if _on_edge(node):
                     self._edge_item(node, None, a, open_lines, rings)
@@ -998,13 +1231,15 @@ class _Reader:
 
     def _footprint_edges(self, open_lines: list, rings: list) -> None:
         """Edge.Cuts drawings inside footprints: only footprints that mention Edge.Cuts are parsed."""
-        if not len(self.footprint_rows()):
+        rows = self.footprint_rows()
+        if not len(rows):
             return
         items = self.s.items
-        hits, at = [], self.data.find(b"Edge.Cuts")
+        end = int(items[rows[-1], 1])
+        hits, at = [], self.data.find(b"Edge.Cuts", int(items[rows[0], 0]), end)
         while at >= 0:
             hits.append(at)
-            at = self.data.find(b"Edge.Cuts", at + 9)
+            at = self.data.find(b"Edge.Cuts", at + 9, end)
         owners = np.searchsorted(items[:, 0], np.asarray(hits, dtype=np.int64), side="right") - 1 if hits else []
         for parent in sorted({int(o) for o in owners if o >= 0 and self.s.heads[int(o)] == b"footprint"}):
             a, b = (int(v) for v in items[parent])
@@ -1049,15 +1284,6 @@ class _Reader:
                 open_lines.append(np.array([move(p) for p in pts]))
         except (TypeError, ValueError, IndexError) as err:
             raise self.fail(offset, f"bad {node[0]} on Edge.Cuts: {err}") from None
-
-
-def _first_rows(values: list) -> dict:
-    """Each distinct value and the row it first appears in (file order, so errors name the first bad item)."""
-    first: dict = {}
-    for i, v in enumerate(values):
-        if v not in first:
-            first[v] = i
-    return first
 
 
 def _row_numbers(row: tuple, fields: tuple[int, ...], counts: tuple[int, ...]) -> list[float] | None:
@@ -1122,6 +1348,12 @@ def _as_token(value) -> bytes:
     if isinstance(value, Quoted):
         return b'"' + value.replace("\\", "\\\\").replace('"', '\\"').encode("utf-8") + b'"'
     return str(value).encode("utf-8")
+
+
+def _atom_text(token: bytes) -> str:
+    """An atom as the tree holds it: a quoted string unescaped (a ``Quoted``), a bare word as it is."""
+    text = token.decode("utf-8")
+    return Quoted(unescape(text[1:-1])) if text[:1] == '"' else text
 
 
 def _text(token: bytes) -> str:
