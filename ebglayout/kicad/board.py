@@ -2,14 +2,15 @@
 
 Speed matters (boards of 100k segments): the whole file is checked once by
 ``sexpr.scan``; segments, arcs and vias are then read in bulk from its
-parenthesis offsets, in chunks (byte-level helpers in ``fields.py``): each field's text is cut out as a fixed-width
-numpy window, checked, and all numbers of a chunk are converted by one
-``np.fromstring`` (the routine behind ``float``; a text equal to the one before
-it is converted once).  Only the small sections that need structure (setup,
-layers, nets, zones, footprints, board-edge drawings) are parsed into trees.
-An item the bulk reader cannot vouch for (an unusual field order or spelling,
-a newer token, a bad value) is parsed through the tree instead, so the fast
-path never decides what is read, only how fast.
+parenthesis offsets, in chunks (the byte-level helpers are in ``fields.py``):
+each field's text is cut out as a fixed-width numpy window, checked, and all
+numbers of a chunk are converted by one ``np.fromstring`` (the routine behind
+``float``; a text equal to the one before it is converted once).  Only the small
+sections that need structure (setup, layers, nets, zones, footprints,
+board-edge drawings) are parsed into trees.  An item the bulk reader cannot
+vouch for (an unusual field order or spelling, a newer token, a bad value) is
+parsed through the tree instead, so the fast path never decides what is read,
+only how fast.
 
 Dialects: KiCad 6 (20211014), 7 (20221018), 8 (20240108), 9 (20241229) and the
 10 files seen so far (2026xxxx, net names instead of net codes).  Layers are
