@@ -20,7 +20,7 @@ from shapely.ops import unary_union
 from .cells import BUILDERS
 from .crossing import Crossing, SlotIndex, find_crossings
 from .fold import Turn, fold
-from .path import offset_pieces, polyline_of, to_board, validate_centre_line
+from .path import offset_pieces, polyline_of, validate_centre_line
 from .placement import place_row
 from .spec import Arc, FilterSpec, Line
 from .units import GRID_MM, on_grid
@@ -117,11 +117,37 @@ def as_multipolygon(geom) -> MultiPolygon:
     return shapely.normalize(MultiPolygon(polys))
 
 
-def place_polygon(poly: Polygon, centre: tuple[float, float], heading: float) -> Polygon:
-    """Rotate a local cell polygon by ``heading`` and move it to ``centre`` on the 1 nm grid."""
-    shell = to_board(np.asarray(poly.exterior.coords), centre, heading)
-    holes = [to_board(np.asarray(r.coords), centre, heading) for r in poly.interiors]
-    return Polygon(shell, holes)
+def _placed_cells(spec: FilterSpec, placements) -> list[PlacedCell]:
+    """Each placement's cell shape turned and moved onto the board, all cells of one size in one array step."""
+    builder = BUILDERS[spec.style]
+    centres = np.round(np.array([cp.centre for cp in placements], dtype=float).reshape(-1, 2) / GRID_MM) * GRID_MM
+    turns = np.array([(math.cos(cp.heading), math.sin(cp.heading)) for cp in placements]).reshape(-1, 2)
+    placed: dict[int, tuple] = {}
+    for size in dict.fromkeys(cp.size for cp in placements):
+        rows = [k for k, cp in enumerate(placements) if cp.size == size]
+        shape = builder(spec, size)
+        roles = [place_polygons(g, centres[rows], turns[rows]) for g in (shape.patch, shape.outer, *shape.bridges)]
+        for j, k in enumerate(rows):
+            placed[k] = tuple(role[j] for role in roles)
+    return [PlacedCell(index=cp.index, centre=tuple(centres[k].tolist()), rotation_deg=cp.rotation_deg, size=cp.size,
+                       patch=placed[k][0], bridges=tuple(placed[k][2:]), outer=placed[k][1])
+            for k, cp in enumerate(placements)]
+
+
+def place_polygons(poly: Polygon, centres: np.ndarray, turns: np.ndarray) -> np.ndarray:
+    """A local cell polygon turned by each heading and moved to each centre, on the 1 nm grid.
+
+    ``centres`` (n, 2) and ``turns`` (n, 2) = (cos, sin) of the headings; one polygon per placement.
+    """
+    cos, sin = turns[:, :1], turns[:, 1:]
+    rings = []
+    for ring in (poly.exterior, *poly.interiors):
+        u, v = np.asarray(ring.coords).T
+        x = centres[:, :1] + u * cos - v * sin
+        y = centres[:, 1:] + u * sin + v * cos
+        rings.append(shapely.linearrings(np.round(np.stack([x, y], axis=-1) / GRID_MM) * GRID_MM))
+    holes = np.stack(rings[1:], axis=1) if len(rings) > 1 else None
+    return shapely.polygons(rings[0], holes=holes)
 
 
 def build_layout(spec: FilterSpec) -> Layout:
@@ -137,17 +163,7 @@ def build_layout(spec: FilterSpec) -> Layout:
     else:
         placements = place_row(spec, centre_line)
 
-    builder = BUILDERS[spec.style]
-    cells = []
-    for cp in placements:
-        shape = builder(spec, cp.size)
-        centre = tuple(float(v) for v in np.round(np.asarray(cp.centre) / GRID_MM) * GRID_MM)
-        cells.append(PlacedCell(
-            index=cp.index, centre=centre, rotation_deg=cp.rotation_deg, size=cp.size,
-            patch=place_polygon(shape.patch, centre, cp.heading),
-            bridges=tuple(place_polygon(b, centre, cp.heading) for b in shape.bridges),
-            outer=place_polygon(shape.outer, centre, cp.heading),
-        ))
+    cells = _placed_cells(spec, placements)
 
     patch = as_multipolygon(_union([c.patch for c in cells]))
     bridge = as_multipolygon(_union([b for c in cells for b in c.bridges]))
