@@ -22,8 +22,10 @@ as sqrt(h / er).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
+import numpy as np
+import shapely
 from shapely import affinity
 from shapely.geometry import Polygon
 
@@ -124,7 +126,15 @@ class Estimate:
 def estimate_layout(layout: Layout, accuracy: float = 0.01) -> Estimate:
     """Estimate every placed cell's resonances and the notch band of the whole cut."""
     spec = layout.spec
-    cells = tuple(estimate_cell(cell, spec.er, spec.h, spec.bridge_length, accuracy) for cell in layout.cells)
+    # Cells drawn alike (same copper relative to the centre, same turn) resonate alike: each shape is solved once.
+    solved: dict[tuple, CellEstimate] = {}
+    cells = []
+    for cell in layout.cells:
+        key = _shape_key(cell)
+        if key not in solved:
+            solved[key] = estimate_cell(cell, spec.er, spec.h, spec.bridge_length, accuracy)
+        cells.append(replace(solved[key], index=cell.index))
+    cells = tuple(cells)
     er_ratios = _ratios(spec.er_tolerance)
     h_ratios = _ratios(spec.h_tolerance)
     corners = []
@@ -138,6 +148,13 @@ def estimate_layout(layout: Layout, accuracy: float = 0.01) -> Estimate:
     inside = None if target is None else bool(low <= target <= high)
     return Estimate(cells, low, high, target, inside, spec.er, spec.h, spec.er_tolerance, spec.h_tolerance,
                     tuple(corners))
+
+
+def _shape_key(cell: PlacedCell) -> tuple:
+    """The cell's patch and bridge vertices relative to its centre, in grid steps, and its turn."""
+    steps = [np.rint((shapely.get_coordinates(g) - cell.centre) / GRID_MM).astype(np.int64).tobytes()
+             for g in (cell.patch, *cell.bridges)]
+    return (cell.rotation_deg, *steps)
 
 
 def estimate_cell(cell: PlacedCell, er: float, h: float, bridge_length: float | None,
