@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import os
 import shutil
 import sys
 
@@ -138,9 +139,13 @@ def test_action_plugin_gives_the_same_cut_as_place(pcbnew, board_copy, tmp_path,
     assert a["In1.Cu"].copper.symmetric_difference(b["In1.Cu"].copper).area < 1e-6
 
 
+def _worker_dies(indices):
+    os._exit(3)
+
+
 def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, capsys, monkeypatch):
-    """Filters shared with forked workers give the same reports, in board order, as one process; a filter
-    that fails inside a worker raises its own error here, as the serial run does."""
+    """Filters shared with forked workers give the same reports, in board order, as one process, also when a
+    worker dies; a filter that fails inside a worker raises its own error here, as the serial run does."""
     import ebglayout.kicad.workflow as workflow
 
     plan = tmp_path / "plan.toml"
@@ -154,6 +159,11 @@ def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, cap
     assert len(serial) == 3
     assert [r.to_json() for r in check_board(out, jobs=2)] == serial
     assert [r.to_json() for r in check_board(out, jobs=3)] == serial
+
+    monkeypatch.setattr(workflow, "_recheck_in_worker", _worker_dies)
+    assert [r.to_json() for r in check_board(out, jobs=2)] == serial
+    monkeypatch.undo()
+    monkeypatch.setattr(workflow, "FILTERS_PER_PROCESS", 1)
 
     text = out.read_text()
     broken = tmp_path / "hub_broken.kicad_pcb"

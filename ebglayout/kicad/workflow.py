@@ -14,6 +14,8 @@ import math
 import multiprocessing
 import re
 import tomllib
+from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -434,9 +436,10 @@ def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
 
     ``jobs`` > 1 shares the filters between this process and ``jobs - 1`` forked
     workers (where the platform forks; never inside KiCad, whose plugin passes 1),
-    at least ``FILTERS_PER_PROCESS`` filters each.  Reports come back in board order either way; a
-    filter whose check fails in a worker is checked again here, so its error is
-    raised exactly as a serial run raises it.
+    at least ``FILTERS_PER_PROCESS`` filters each.  Reports come back in board
+    order either way.  A filter whose check fails in a worker, or every filter of
+    a worker that died, is checked again here, so an error is raised exactly as a
+    serial run raises it.
     """
     board = read_board(board_path)
     designs = placed_designs(board)
@@ -454,26 +457,36 @@ def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
         return reports + [_recheck(job, k) for k in range(1, len(designs))]
     global _RECHECK
     share = -(-len(designs) // jobs)
+    shares = [range(a, min(a + share, len(designs))) for a in range(share, len(designs), share)]
     _RECHECK = job
     try:
-        with multiprocessing.get_context("fork").Pool(jobs - 1) as pool:
-            pending = pool.map_async(_recheck_in_worker, range(share, len(designs)), chunksize=share)
+        with ProcessPoolExecutor(len(shares), mp_context=multiprocessing.get_context("fork")) as pool:
+            pending = [pool.submit(_recheck_in_worker, part) for part in shares]
             reports += [_recheck(job, k) for k in range(1, share)]
-            theirs = pending.get()
+            for part, future in zip(shares, pending):
+                try:
+                    theirs = future.result()
+                except BrokenProcessPool:
+                    theirs = [None] * len(part)
+                reports += [r if r is not None else _recheck(job, k) for k, r in zip(part, theirs)]
     finally:
         _RECHECK = None
-    return reports + [r if r is not None else _recheck(job, k) for k, r in enumerate(theirs, start=share)]
+    return reports
 
 
 _RECHECK: _Recheck | None = None
 """The job a forked worker inherits (set only while the pool runs)."""
 
 
-def _recheck_in_worker(index: int) -> CheckReport | None:
-    try:
-        return _recheck(_RECHECK, index)
-    except Exception:  # noqa: BLE001 - the parent checks this filter again and raises the real error
-        return None
+def _recheck_in_worker(indices: range) -> list[CheckReport | None]:
+    """A worker's share; None where a filter's check raised (the parent checks it again and raises)."""
+    out = []
+    for index in indices:
+        try:
+            out.append(_recheck(_RECHECK, index))
+        except Exception:  # noqa: BLE001 - see the docstring
+            out.append(None)
+    return out
 
 
 def _recheck(job: _Recheck, index: int) -> CheckReport:
