@@ -316,10 +316,7 @@ def _parens(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray | int] | No
     count, inside, depth, last_quote = 0, 0, 0, -1
     for start in range(0, len(data), _SCAN_CHUNK):
         chunk = raw[start:start + _SCAN_CHUNK]
-        found = (chunk | 1) == _CLOSE
-        found |= chunk == _QUOTE
-        found |= chunk == _BACKSLASH
-        at = np.flatnonzero(found)
+        at = _marks(chunk)
         kind = chunk[at]
         if (kind == _BACKSLASH).any():
             return None
@@ -374,16 +371,21 @@ def _spans_index(starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
     return np.repeat(starts - (np.cumsum(lengths) - lengths), lengths) + np.arange(int(lengths.sum()))
 
 
+def _marks(chunk: np.ndarray) -> np.ndarray:
+    """Offsets in a chunk of bytes of every parenthesis, quote and backslash."""
+    found = (chunk | 1) == _CLOSE  # "(" and ")" differ only in the lowest bit
+    found |= chunk == _QUOTE
+    found |= chunk == _BACKSLASH
+    return np.flatnonzero(found)
+
+
 def _parens_with_escapes(name: str, data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray | int]:
     """``_parens`` for a file with backslashes: all marks first, escapes resolved, then the same string rule."""
     raw = np.frombuffer(data, dtype=np.uint8)
     positions, values = [], []
     for start in range(0, len(data), _SCAN_CHUNK):
         chunk = raw[start:start + _SCAN_CHUNK]
-        found = (chunk | 1) == _CLOSE
-        found |= chunk == _QUOTE
-        found |= chunk == _BACKSLASH
-        at = np.flatnonzero(found)
+        at = _marks(chunk)
         values.append(chunk[at])
         at += start
         positions.append(at.astype(_offset_type(len(data))))
