@@ -49,6 +49,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("spec", type=Path)
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
+    p.add_argument("--jobs", type=int, default=0, metavar="N",
+                   help="processes for a large filter's files (default: one per usable CPU; 1: no second process)")
 
     p = command("check", "run the design-rule checks on a spec, or on every filter placed on a board")
     p.add_argument("spec", type=Path, nargs="?")
@@ -159,7 +161,7 @@ def _build(args) -> int:
     from .pipeline import build_to_folder
     from .spec import load_spec
 
-    result = build_to_folder(load_spec(args.spec), args.out, force=args.force)
+    result = build_to_folder(load_spec(args.spec), args.out, force=args.force, jobs=_jobs(args.jobs))
     print(result.checks.format_table())
     print(f"wrote {', '.join(sorted(p.name for p in args.out.iterdir() if p.name.startswith(result.name)))} "
           f"and report.json to {args.out}")

@@ -6,6 +6,7 @@ report.json.
 """
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -43,8 +44,18 @@ def output_names(name: str) -> list[str]:
     return [name + s for s in OUTPUT_SUFFIXES] + ["report.json"]
 
 
-def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str = "report.json") -> None:
-    """Write every format of one filter into a staging set (moved into place when the caller's block ends)."""
+PARALLEL_DXF_CELLS = 200
+"""From this many cells up, ``write_filter`` with ``jobs`` > 1 writes the DXF (the slowest format, ezdxf spends
+about 0.1 ms per entity) in a forked process while this one writes the others."""
+
+
+def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str = "report.json", jobs: int = 1) -> None:
+    """Write every format of one filter into a staging set (moved into place when the caller's block ends).
+
+    ``jobs`` > 1 (the CLI; never the KiCad plugin) lets a large filter's DXF be
+    written by a forked child in parallel; should the child fail, the DXF is
+    written here, so an error is raised as without it.
+    """
     from .export.dxf import write_dxf
     from .export.gds import write_gds
     from .export.preview import write_preview
@@ -54,19 +65,51 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
     name = result.name
     findings = result.checks.findings
     notch = result.estimate.to_json() if result.estimate is not None else None
-    write_dxf(result.layout, staged.path(name + ".dxf"), findings=findings)
-    write_gds(result.layout, staged.path(name + ".gds"))
-    write_preview(result.layout, staged.path(name + ".svg"), staged.path(name + ".png"), findings=findings, notch=notch)
-    staged.write_text(name + ".kicad_mod", footprint_text(result.layout))
-    staged.write_text(name + ".kicad_dru", rules_text(result.layout))
-    staged.write_text(report_name, to_json_text(report_data(result.layout, result.checks, result.estimate)))
+    dxf_path = staged.path(name + ".dxf")
+
+    def dxf() -> None:
+        write_dxf(result.layout, dxf_path, findings=findings)
+
+    child = None
+    if jobs > 1 and len(result.layout.cells) >= PARALLEL_DXF_CELLS and hasattr(os, "fork"):
+        child = _forked(dxf)
+    else:
+        dxf()
+    try:
+        write_gds(result.layout, staged.path(name + ".gds"))
+        write_preview(result.layout, staged.path(name + ".svg"), staged.path(name + ".png"), findings=findings,
+                      notch=notch)
+        staged.write_text(name + ".kicad_mod", footprint_text(result.layout))
+        staged.write_text(name + ".kicad_dru", rules_text(result.layout))
+        staged.write_text(report_name, to_json_text(report_data(result.layout, result.checks, result.estimate)))
+    finally:
+        done = child is None or _succeeded(child)  # always waited for: no file may appear after a failure here
+    if not done:
+        dxf()
 
 
-def build_to_folder(spec: FilterSpec, out_dir: Path, force: bool = False, context=None) -> FilterResult:
-    """`ebglayout build`: all outputs of one spec into ``out_dir``, all or nothing."""
+def _forked(job) -> int:
+    """Run ``job`` in a forked child (pid returned); the child leaves through ``os._exit`` with 0 or 1."""
+    pid = os.fork()
+    if pid == 0:  # pragma: no cover - runs in the child, which never returns
+        code = 1
+        try:
+            job()
+            code = 0
+        finally:
+            os._exit(code)
+    return pid
+
+
+def _succeeded(pid: int) -> bool:
+    return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1]) == 0
+
+
+def build_to_folder(spec: FilterSpec, out_dir: Path, force: bool = False, context=None, jobs: int = 1) -> FilterResult:
+    """`ebglayout build`: all outputs of one spec into ``out_dir``, all or nothing (``jobs``: see write_filter)."""
     staged = StagedOutputs(out_dir, force=force)
     staged.require_free(output_names(spec.name))
     result = make_filter(spec, context)
     with staged:
-        write_filter(result, staged)
+        write_filter(result, staged, jobs=jobs)
     return result

@@ -154,3 +154,30 @@ def test_console_script_is_installed():
         pytest.skip("ebglayout is not installed as a command in this environment (tests run from the source tree)")
     out = subprocess.run([exe, "--version"], capture_output=True, text=True, check=True).stdout
     assert out.startswith("ebglayout ")
+
+
+def test_dxf_written_by_a_forked_process_is_the_same_file(tmp_path, monkeypatch):
+    """A large filter's DXF written by a forked child equals the one written in-process; when the child fails,
+    the parent writes it itself, and no staged or partial file is left either way."""
+    import ebglayout.export.dxf as dxf_module
+    import ebglayout.pipeline as pipeline
+    from ebglayout.pipeline import build_to_folder
+
+    spec = load_spec(SAMPLE_SPECS[2])
+    build_to_folder(spec, tmp_path / "serial", jobs=1)
+    monkeypatch.setattr(pipeline, "PARALLEL_DXF_CELLS", 1)
+    build_to_folder(spec, tmp_path / "forked", jobs=2)
+    parent, write_dxf = os.getpid(), dxf_module.write_dxf
+
+    def fails_in_a_child(*args, **kwargs):
+        if os.getpid() != parent:
+            raise OSError("disk full")
+        return write_dxf(*args, **kwargs)
+
+    monkeypatch.setattr(dxf_module, "write_dxf", fails_in_a_child)
+    build_to_folder(spec, tmp_path / "fallback", jobs=2)
+    names = sorted(p.name for p in (tmp_path / "serial").iterdir())
+    for folder in ("forked", "fallback"):
+        assert sorted(p.name for p in (tmp_path / folder).iterdir()) == names
+        for name in names:
+            assert (tmp_path / folder / name).read_bytes() == (tmp_path / "serial" / name).read_bytes(), name
