@@ -7,6 +7,7 @@ report.json.
 from __future__ import annotations
 
 import os
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -71,7 +72,7 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
         write_dxf(result.layout, dxf_path, findings=findings)
 
     child = None
-    if jobs > 1 and len(result.layout.cells) >= PARALLEL_DXF_CELLS and hasattr(os, "fork"):
+    if jobs > 1 and len(result.layout.cells) >= PARALLEL_DXF_CELLS and can_fork():
         child = _forked(dxf)
     else:
         dxf()
@@ -86,6 +87,12 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
         done = child is None or _succeeded(child)  # always waited for: no file may appear after a failure here
     if not done:
         dxf()
+
+
+def can_fork() -> bool:
+    """Whether work may be handed to forked processes: on Linux only (Windows has no fork; on macOS the system
+    libraries numpy may load are not safe to use in a forked child)."""
+    return sys.platform.startswith("linux")
 
 
 def _forked(job) -> int:

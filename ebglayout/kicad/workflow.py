@@ -31,7 +31,7 @@ from ..errors import BoardError, SpecError
 from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
-from ..pipeline import FilterResult, write_filter
+from ..pipeline import FilterResult, can_fork, write_filter
 from ..spec import Arc, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
@@ -435,7 +435,7 @@ def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
     """`ebglayout check --board`: every placed filter re-checked against the board's copper as it is now.
 
     ``jobs`` > 1 shares the filters between this process and ``jobs - 1`` forked
-    workers (where the platform forks; never inside KiCad, whose plugin passes 1),
+    workers (on Linux, see ``pipeline.can_fork``; never inside KiCad, whose plugin passes 1),
     at least ``FILTERS_PER_PROCESS`` filters each.  Reports come back in board
     order either way.  A filter whose check fails in a worker, or every filter of
     a worker that died, is checked again here, so an error is raised exactly as a
@@ -453,7 +453,7 @@ def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
     # The first filter is checked here before any fork, which also builds the board's lazy indexes and texts
     # once for every worker to inherit.
     reports = [_recheck(job, 0)]
-    if jobs == 1 or "fork" not in multiprocessing.get_all_start_methods():
+    if jobs == 1 or not can_fork():
         return reports + [_recheck(job, k) for k in range(1, len(designs))]
     global _RECHECK
     share = -(-len(designs) // jobs)
