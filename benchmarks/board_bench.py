@@ -489,7 +489,7 @@ def export_report(folder: Path, runs: int) -> None:
     """One filter and a 1,000-cell row through pipeline.build_to_folder (all formats), with where the time goes."""
     import tomllib
 
-    from ebglayout.pipeline import build_to_folder
+    from ebglayout.pipeline import build_to_folder, usable_cpus
     from ebglayout.spec import load_spec, spec_from_dict
 
     spec = load_spec(SPEC)
@@ -502,7 +502,7 @@ def export_report(folder: Path, runs: int) -> None:
     raw["plane"]["outline"] = [[-10, -10], [length + 10, -10], [length + 10, 10], [-10, 10]]
     big = spec_from_dict(raw)
     big_runs = max(1, runs // 4)
-    jobs = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    jobs = usable_cpus()
     build_to_folder(spec, folder / "warm", force=True, jobs=jobs)
     one = time_median(runs, lambda: build_to_folder(spec, folder / "one", force=True, jobs=jobs))
     many = time_median(big_runs, lambda: build_to_folder(big, folder / "many", force=True, jobs=jobs))

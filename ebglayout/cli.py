@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import sys
 from pathlib import Path
 
@@ -203,7 +202,9 @@ def _jobs(asked: int) -> int:
         raise EbgError(f"--jobs: {asked} is not allowed; give 0 (one per usable CPU) or a positive count")
     if asked:
         return asked
-    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    from .pipeline import usable_cpus
+
+    return usable_cpus()
 
 
 def _pairs(args) -> int:

@@ -89,6 +89,11 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
         dxf()
 
 
+def usable_cpus() -> int:
+    """CPUs this process may run on (its affinity where the platform tells it): the default for ``jobs``."""
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+
+
 def can_fork() -> bool:
     """Whether work may be handed to forked processes: on Linux only (Windows has no fork; on macOS the system
     libraries numpy may load are not safe to use in a forked child)."""
