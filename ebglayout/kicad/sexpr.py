@@ -259,9 +259,7 @@ def scan(data: bytes, name: str, max_depth: int = MAX_DEPTH) -> Structure:
         except UnicodeDecodeError as err:
             what = f"invalid UTF-8 byte 0x{data[err.start]:02x}: not a KiCad text file"
             raise error_at(name, data, err.start, what) from None
-    found = _parens(data)
-    if found is None:
-        found = _parens_with_escapes(name, data)
+    found = _parens_with_escapes(name, data) if b"\\" in data else _parens(data)
     paren, step, depth = found
     if isinstance(depth, int):
         raise error_at(name, data, depth, "unterminated string: no closing '\"' before the end of the file")
@@ -300,8 +298,8 @@ def parse_text(text: str | bytes, name: str = "<text>", max_depth: int = MAX_DEP
     return structure.parse(*structure.root)
 
 
-def _parens(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray | int] | None:
-    """Structural parentheses chunk by chunk: offsets, steps (+1/-1) and depth after each; None if there are escapes.
+def _parens(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray | int]:
+    """Structural parentheses chunk by chunk: offsets, steps (+1/-1) and depth after each, in a file without escapes.
 
     Quotes pair up into strings (a string still open at the end of a chunk is
     carried into the next, like the depth); marks between a pair are dropped.
@@ -318,8 +316,6 @@ def _parens(data: bytes) -> tuple[np.ndarray, np.ndarray, np.ndarray | int] | No
         chunk = raw[start:start + _SCAN_CHUNK]
         at = _marks(chunk)
         kind = chunk[at]
-        if (kind == _BACKSLASH).any():
-            return None
         is_quote = kind == _QUOTE
         quotes = np.flatnonzero(is_quote)
         if not len(quotes):
