@@ -11,11 +11,8 @@ import bisect
 import fnmatch
 import json
 import math
-import multiprocessing
 import re
 import tomllib
-from concurrent.futures import ProcessPoolExecutor
-from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -455,6 +452,10 @@ def check_board(board_path: str | Path, jobs: int = 1) -> list[CheckReport]:
     reports = [_recheck(job, 0)]
     if jobs == 1 or not can_fork():
         return reports + [_recheck(job, k) for k in range(1, len(designs))]
+    import multiprocessing  # imported here: a one-process check (the plugin's) does not pay for them
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
     global _RECHECK
     share = -(-len(designs) // jobs)
     shares = [range(a, min(a + share, len(designs))) for a in range(share, len(designs), share)]
