@@ -10,7 +10,9 @@ compare it with the engine's polygons.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import shapely
 from shapely.geometry import LineString, MultiPolygon, Point, Polygon
@@ -151,21 +153,13 @@ class Filled:
 def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Filled], dict]:
     """Load a saved board, fill every zone, return per-layer copper and facts about our footprint.
 
-    Footprint polygons count with their stroke (a filled polygon grows by half the
+    KiCad 6 returns a footprint polygon in footprint coordinates (class FP_SHAPE), 7 and later in board
+    coordinates (checked with 6.0.11 and 9.0.2).  Footprint polygons count with their stroke (a filled polygon grows by half the
     stroke width; an unfilled one is only its stroked outline).
     """
     board = pcbnew.LoadBoard(str(path))
     ours = [fp for fp in board.GetFootprints() if fp.GetReference() == reference]
-    zones = pcbnew.ZONES()
-    for z in board.Zones():
-        zones.append(z)
-    fp_zones = []
-    for fp in board.GetFootprints():
-        for z in fp.Zones():
-            if not z.GetIsRuleArea():
-                zones.append(z)
-                fp_zones.append(z)
-    pcbnew.ZONE_FILLER(board).Fill(zones)
+    fp_zones = fill_zones(pcbnew, board)
     facts = {"found": len(ours), "attributes": ours[0].GetAttributes() if ours else None,
              "locked": ours[0].IsLocked() if ours else None,
              "rule_areas": sum(1 for fp in ours for z in fp.Zones() if z.GetIsRuleArea()),
@@ -181,6 +175,7 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
                 plane.append(poly_set_to_shapely(pcbnew, z.GetFilledPolysList(layer_id)))
         zgeo = [poly_set_to_shapely(pcbnew, z.GetFilledPolysList(layer_id)) for z in fp_zones if z.IsOnLayer(layer_id)]
         graphics = []
+        local_graphics = hasattr(pcbnew, "FP_SHAPE")  # KiCad 6 keeps footprint shapes in footprint coordinates
         for fp in board.GetFootprints():
             pos = fp.GetPosition()
             angle = math.radians(orientation_degrees(fp))
@@ -193,7 +188,7 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
             for item in fp.GraphicalItems():
                 polygon = is_polygon_graphic(pcbnew, item)
                 if item.GetLayer() == layer_id and polygon:
-                    shape = poly_set_to_shapely(pcbnew, item.GetPolyShape(), to_board)
+                    shape = poly_set_to_shapely(pcbnew, item.GetPolyShape(), to_board if local_graphics else None)
                     half = item.GetWidth() / 2e6
                     if not item.IsFilled():
                         shape = shape.boundary.buffer(max(half, 1e-7))
@@ -202,6 +197,39 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
                     graphics.append(shape)
         out[name] = Filled(_union(plane), _union(zgeo), _union(graphics))
     return out, facts
+
+
+def fill_zones(pcbnew, board) -> list:
+    """Fill board zones and footprint copper zones (ZONE_FILLER fills only what it is given); return the latter."""
+    zones = pcbnew.ZONES()
+    for zone in board.Zones():
+        zones.append(zone)
+    fp_zones = [z for fp in board.GetFootprints() for z in fp.Zones() if not z.GetIsRuleArea()]
+    for zone in fp_zones:
+        zones.append(zone)
+    pcbnew.ZONE_FILLER(board).Fill(zones)
+    return fp_zones
+
+
+def drc_findings(pcbnew, path) -> list[str]:
+    """KiCad's own DRC of a saved board with every zone filled: its findings, one line each, library warnings left out.
+
+    KiCad 9.0.2's ``WriteDRCReport`` applies the .kicad_dru only when a project file sits beside the board (6.0.11
+    applies it without one; both checked here), so an empty project file is written first, as every KiCad project
+    has one.  KiCad 9 also warns that the rig's footprint libraries are not in a library table: that is about this
+    test set-up, not the board.
+    """
+    project = Path(path).with_suffix(".kicad_pro")
+    if not project.exists():
+        project.write_text("{}\n")
+    board = pcbnew.LoadBoard(str(path))
+    fill_zones(pcbnew, board)
+    report = Path(path).with_suffix(".drc.rpt")
+    millimetres = getattr(pcbnew, "EDA_UNITS_MM", None) or pcbnew.EDA_UNITS_MILLIMETRES  # name in 9 / in 6
+    pcbnew.WriteDRCReport(board, str(report), millimetres, True)
+    text = report.read_text()
+    assert re.search(r"\*\* Found \d+ DRC violations \*\*", text), text
+    return [line for line in text.splitlines() if line.startswith("[") and not line.startswith("[lib_footprint_issues]")]
 
 
 def _union(geoms):
