@@ -154,14 +154,39 @@ def test_kicad6_loads_the_library_footprint(pcbnew, sample_layouts, tmp_path):
         assert len(courtyard) == 1
 
 
-def test_kicad6_reads_no_newer_dialect_as_its_own(pcbnew, sample_layouts, tmp_path):
-    """The 7/8/9 texts really use newer syntax: KiCad 6 refuses them (it fails on the first unknown token)."""
-    lib = tmp_path / "new.pretty"
+def _loaded_facts(pcbnew, footprint) -> dict:
+    """What KiCad's footprint loader made of a .kicad_mod, in comparable form (areas rounded to 1 um2)."""
+    zones = sorted((z.GetIsRuleArea(), z.GetZoneName(), round(poly_set_to_shapely(pcbnew, z.Outline()).area, 6))
+                   for z in footprint.Zones())
+    polys = [g for g in footprint.GraphicalItems() if is_polygon_graphic(pcbnew, g)]
+    return {"reference": footprint.GetReference(), "value": footprint.GetValue(),
+            "attributes": footprint.GetAttributes(), "locked": footprint.IsLocked(), "zones": zones,
+            "polygons": sorted((g.GetLayerName(), g.GetWidth(), g.IsFilled(),
+                                round(poly_set_to_shapely(pcbnew, g.GetPolyShape()).area, 6)) for g in polys),
+            "courtyards": sum(1 for g in footprint.GraphicalItems() if g.GetLayer() == pcbnew.F_CrtYd)}
+
+
+@pytest.mark.parametrize("name", ["hx2_l1_rx_folded", "hx2_l2_tx_bridged"])
+def test_each_dialect_loads_as_the_kicad6_text_where_kicad_reads_it(pcbnew, sample_layouts, tmp_path, name):
+    """A KiCad whose own file format (SEXPR_BOARD_FILE_VERSION) is as new as a dialect loads that dialect's
+    text with the same items as the KiCad 6 text; an older KiCad refuses it (6.0.11 fails on the first unknown
+    token), so the 7/8/9 texts really use the newer syntax.  Run with 6.0.11 (refuses 7, 8, 9) and 9.0.2
+    (loads all four)."""
+    own = int(pcbnew.SEXPR_BOARD_FILE_VERSION)
+    lib = tmp_path / "dialects.pretty"
     lib.mkdir()
-    layout = sample_layouts["hx2_l1_rx_folded"]
-    for version in (KICAD7, KICAD8, KICAD9):
+    layout = sample_layouts[name]
+    for version in DIALECTS:
         (lib / f"v{version}.kicad_mod").write_text(footprint_text(layout, version))
-        assert pcbnew.FootprintLoad(str(lib), f"v{version}") is None
+    want = _loaded_facts(pcbnew, pcbnew.FootprintLoad(str(lib), f"v{KICAD6}"))
+    assert want["zones"] and want["courtyards"] == 1
+    for version in DIALECTS[1:]:
+        loaded = pcbnew.FootprintLoad(str(lib), f"v{version}")
+        if version <= own:
+            assert loaded is not None, f"KiCad {own} could not read the {version} text"
+            assert _loaded_facts(pcbnew, loaded) == want, version
+        else:
+            assert loaded is None, f"KiCad {own} read the {version} text as its own"
 
 
 def test_merge_rules_keeps_user_rules_and_puts_ours_last(sample_layouts):
