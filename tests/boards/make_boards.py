@@ -181,17 +181,31 @@ def load_pcbnew():
 
 
 class Maker:
-    """Thin helper over pcbnew 6 for building a board in mm."""
+    """Thin helper over pcbnew for building a board in mm: KiCad 6 (the committed boards) and 9 (tests).
+
+    The calls that changed between them are chosen by what the running pcbnew accepts (checked with 6.0.11
+    and 9.0.2): positions and sizes as wxPoint/wxSize (6) or VECTOR2I (7+), footprint zones as FP_ZONE (6)
+    or ZONE, SetPriority or SetAssignedPriority, a pad's SetPos0 (6 only), Flip's side argument.
+    """
 
     def __init__(self, pcbnew, copper_layers, seed=1):
         self.k = pcbnew
+        # SWIG's signature text tells which position type this pcbnew takes; a probe item changed the uuids of the
+        # regenerated boards
+        if "VECTOR2I" in (pcbnew.PCB_TRACK.SetStart.__doc__ or ""):
+            self.point = self.size_type = pcbnew.VECTOR2I
+        else:
+            self.point, self.size_type = pcbnew.wxPoint, pcbnew.wxSize
         pcbnew.KIID.SeedGenerator(seed)  # item uuids from a seeded generator: regenerated files come out the same
         self.board = pcbnew.BOARD()
         self.board.SetCopperLayerCount(copper_layers)
         self.nets = {}
 
     def pt(self, x, y):
-        return self.k.wxPoint(self.k.FromMM(x), self.k.FromMM(y))
+        return self.point(self.k.FromMM(x), self.k.FromMM(y))
+
+    def size(self, w, h):
+        return self.size_type(self.k.FromMM(w), self.k.FromMM(h))
 
     def layer(self, name):
         return self.board.GetLayerID(name)
@@ -244,12 +258,12 @@ class Maker:
     def zone(self, layer, net, rings, name="", priority=0, clearance=0.3, min_width=0.2, parent=None, keepout=None,
              island="always"):
         k = self.k
-        z = k.FP_ZONE(parent) if parent is not None else k.ZONE(self.board)
+        z = getattr(k, "FP_ZONE", k.ZONE)(parent) if parent is not None else k.ZONE(self.board)
         z.SetLayer(self.layer(layer))
         if net:
             z.SetNetCode(self.net(net).GetNetCode())
         z.SetZoneName(name)
-        z.SetPriority(priority)
+        (getattr(z, "SetAssignedPriority", None) or z.SetPriority)(priority)
         z.SetLocalClearance(k.FromMM(clearance))
         z.SetMinThickness(k.FromMM(min_width))
         z.SetIslandRemovalMode({"always": k.ISLAND_REMOVAL_MODE_ALWAYS, "never": k.ISLAND_REMOVAL_MODE_NEVER,
@@ -288,12 +302,13 @@ class Maker:
             pad.SetNumber(number)
             pad.SetAttribute({"smd": k.PAD_ATTRIB_SMD, "thru_hole": k.PAD_ATTRIB_PTH}[kind])
             pad.SetShape({"rect": k.PAD_SHAPE_RECT, "circle": k.PAD_SHAPE_CIRCLE, "oval": k.PAD_SHAPE_OVAL}[shape])
-            pad.SetSize(k.wxSize(k.FromMM(size[0]), k.FromMM(size[1])))
+            pad.SetSize(self.size(*size))
             if drill:
-                pad.SetDrillSize(k.wxSize(k.FromMM(drill), k.FromMM(drill)))
+                pad.SetDrillSize(self.size(drill, drill))
             pad.SetLayerSet(k.PAD.PTHMask() if kind == "thru_hole" else k.PAD.SMDMask())
-            pad.SetPos0(self.pt(*local))
-            pad.SetPosition(self.pt(*local))
+            if hasattr(pad, "SetPos0"):
+                pad.SetPos0(self.pt(*local))
+            pad.SetPosition(self.pt(*local))  # the footprint is still at the origin
             if net:
                 pad.SetNet(self.net(net))
             fp.Add(pad)
@@ -301,7 +316,7 @@ class Maker:
         if rotation:
             fp.SetOrientationDegrees(rotation)
         if flip:
-            fp.Flip(fp.GetPosition(), False)
+            fp.Flip(fp.GetPosition(), getattr(k, "FLIP_DIRECTION_TOP_BOTTOM", False))
         return fp
 
     def edge_rect(self, x0, y0, x1, y1, r):
