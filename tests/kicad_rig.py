@@ -212,7 +212,7 @@ def fill_zones(pcbnew, board) -> list:
 
 
 def drc_findings(pcbnew, path) -> list[str]:
-    """KiCad's own DRC of a saved board with every zone filled: its findings, one line each, library warnings left out.
+    """KiCad's own DRC of a saved board with every zone filled: its findings, a line each, sorted, library warnings out.
 
     KiCad 9.0.2's ``WriteDRCReport`` applies the .kicad_dru only when a project file sits beside the board (6.0.11
     applies it without one; both checked here), so an empty project file is written first, as every KiCad project
@@ -229,7 +229,7 @@ def drc_findings(pcbnew, path) -> list[str]:
     pcbnew.WriteDRCReport(board, str(report), millimetres, True)
     text = report.read_text()
     assert re.search(r"\*\* Found \d+ DRC violations \*\*", text), text
-    return [line for line in text.splitlines() if line.startswith("[") and not line.startswith("[lib_footprint_issues]")]
+    return sorted(line for line in text.splitlines() if line.startswith("[") and not line.startswith("[lib_footprint_issues]"))
 
 
 def _union(geoms):
