@@ -67,7 +67,7 @@ RULES: tuple[Rule, ...] = (
          "common practice: keep intra-pair skew a small fraction of the unit interval"),
     Rule("kicad-fill", "(boards only) settings that would keep KiCad's pour from reproducing the cut: missing or "
          "overridden rule, plane min width above a web, zone priorities, unfilled or hatched planes", "none",
-         "measured with KiCad 6.0.11's own zone filler (tests/test_kicad_fill.py)"),
+         "measured with the zone filler of KiCad 6.0.11 and 9.0.2 (tests/test_kicad_fill.py)"),
     Rule("notch-target", "estimated notch band covers the target over the er/h tolerance sweep", "target_tolerance = 15 %",
          "cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., sec. 9.7, from memory)"),
 )

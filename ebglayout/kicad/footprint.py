@@ -1,7 +1,7 @@
 """KiCad footprint for one filter: patch copper, rule areas and (bridged) a copper zone per plane layer.
 
 The recipe makes KiCad's own zone fill reproduce the engine's slot exactly
-(measured with KiCad 6.0.11, tests/test_kicad_fill.py):
+(measured with KiCad 6.0.11 and 9.0.2, tests/test_kicad_fill.py):
 
 * floating patch = ``fp_poly`` on the plane layer, stroke width 0, solid fill, no net;
 * rule areas (copper pour not allowed, the other four flags allowed) whose union

@@ -92,7 +92,7 @@ def fill_risks(board_text: str, layout: Layout, plane_net: str = "GND", rules_te
     """Board settings that would stop KiCad's fill reproducing the cut; [] when none were found.
 
     ``rules_text`` is the board's .kicad_dru text, None when there is none.
-    Measured with KiCad 6.0.11 (tests/test_kicad_fill.py) and therefore NOT
+    Measured with KiCad 6.0.11 and 9.0.2 (tests/test_kicad_fill.py) and therefore NOT
     reported: a plane zone clearance larger than the slot once our rule is in the
     .kicad_dru (the rule replaces it), a plane min width above the bridge width and
     the plane's island removal mode (bridges and patches are footprint copper, not
