@@ -38,6 +38,21 @@ def place_straight(board_copy, tmp_path, capsys):
     return code, out
 
 
+TWO_STYLES = (f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\npair = ["HX2_L0_TX_P", "HX2_L0_TX_N"]\n\n'
+              f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_L1*"\n')
+"""A plan with a straight filter under one pair and a bridged one under every HX2_L1 pair."""
+
+
+def place_plan(board, tmp_path, capsys, plan_text: str):
+    """`ebglayout place --plan` of ``plan_text`` on ``board``; the new board's path."""
+    plan = tmp_path / "plan.toml"
+    plan.write_text(plan_text)
+    out = tmp_path / "hub_plan.kicad_pcb"
+    assert main(["place", str(board), "--plan", str(plan), "--out", str(out)]) == 0
+    capsys.readouterr()
+    return out
+
+
 def test_pairs_lists_the_sample_pairs(capsys):
     assert main(["pairs", str(BOARD), "--json"]) == 0
     rows = json.loads(capsys.readouterr().out)
@@ -79,12 +94,7 @@ def test_placed_board_fills_to_the_designed_slots(pcbnew, board_copy, tmp_path, 
     if format_ == "kicad":
         pcbnew.SaveBoard(str(board_copy), pcbnew.LoadBoard(str(board_copy)))
     before = drc_findings(pcbnew, board_copy)
-    plan = tmp_path / "plan.toml"
-    plan.write_text(f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\npair = ["HX2_L0_TX_P", "HX2_L0_TX_N"]\n\n'
-                    f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_L1*"\n')
-    out = tmp_path / "hub_filtered.kicad_pcb"
-    assert main(["place", str(board_copy), "--plan", str(plan), "--out", str(out)]) == 0
-    capsys.readouterr()
+    out = place_plan(board_copy, tmp_path, capsys, TWO_STYLES)
     assert read_board(out).version == read_board(board_copy).version
     designs = placed_designs(read_board(out))
     assert len(designs) == 2
@@ -121,12 +131,7 @@ def test_check_board_finds_a_track_routed_through_the_cut_later(board_copy, tmp_
 
 
 def test_plan_places_many_pairs_in_one_write(board_copy, tmp_path, capsys, pcbnew):
-    plan = tmp_path / "plan.toml"
-    plan.write_text(f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\npair = ["HX2_L0_TX_P", "HX2_L0_TX_N"]\n\n'
-                    f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_L1*"\n')
-    out = tmp_path / "hub_plan.kicad_pcb"
-    assert main(["place", str(board_copy), "--plan", str(plan), "--out", str(out)]) == 0
-    capsys.readouterr()
+    out = place_plan(board_copy, tmp_path, capsys, TWO_STYLES)
     board = pcbnew.LoadBoard(str(out))
     refs = sorted(fp.GetReference() for fp in board.GetFootprints() if fp.GetReference().startswith("FIL"))
     assert refs == ["FIL1", "FIL2"]
@@ -183,12 +188,8 @@ def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, cap
     worker dies; a filter that fails inside a worker raises its own error here, as the serial run does."""
     import ebglayout.kicad.workflow as workflow
 
-    plan = tmp_path / "plan.toml"
-    plan.write_text(f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\nmatch = "HX2_L*"\n\n'
-                    f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_USB*"\n')
-    out = tmp_path / "hub_plan.kicad_pcb"
-    assert main(["place", str(board_copy), "--plan", str(plan), "--out", str(out)]) == 0
-    capsys.readouterr()
+    out = place_plan(board_copy, tmp_path, capsys, f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\nmatch = "HX2_L*"\n\n'
+                     f'[[filter]]\nspec = "{BRIDGED.as_posix()}"\nmatch = "HX2_USB*"\n')
     monkeypatch.setattr(workflow, "FILTERS_PER_PROCESS", 1)
     serial = [r.to_json() for r in check_board(out, jobs=1)]
     assert len(serial) == 3
