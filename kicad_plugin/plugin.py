@@ -61,7 +61,8 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
         library = Path(tmp) / "ebglayout.pretty"
         library.mkdir()
         name = layout.spec.name
-        (library / f"{name}.kicad_mod").write_text(footprint.footprint_text(layout), encoding="utf-8")
+        text = footprint.footprint_text(layout, design=placed.design)
+        (library / f"{name}.kicad_mod").write_text(text, encoding="utf-8")
         fp = pcbnew.FootprintLoad(str(library), name)
         if fp is None:
             raise RuntimeError("KiCad could not load the generated footprint")

@@ -177,6 +177,10 @@ def test_action_plugin_gives_the_same_cut_as_place(pcbnew, board_copy, tmp_path,
     a, _ = fill_board(pcbnew, str(out))
     b, _ = fill_board(pcbnew, str(via_plugin))
     assert a["In1.Cu"].copper.symmetric_difference(b["In1.Cu"].copper).area < 1e-6
+    # the footprint carries its design, so the re-check action and `check --board` find the filter
+    assert [d for _, d in placed_designs(read_board(via_plugin))] == [d for _, d in placed_designs(read_board(out))]
+    (report,) = plugin_module.recheck(live)
+    assert report.name.startswith("FIL1 ") and not report.errors
 
 
 def _worker_dies(indices):

@@ -304,7 +304,7 @@ class _Writer:
                    f"  locked (layer \"F.Cu\")\n"
             if self.d.version == KICAD6:
                 head += "  (tedit 0)\n"
-        return head + self.body("  ") + ")\n"
+        return head + self.design_property("  ") + self.body("  ") + ")\n"
 
     def board_item(self) -> str:
         spec = self.layout.spec
@@ -359,13 +359,18 @@ def footprint_origin(layout: Layout, at: tuple[float, float] | None = None) -> t
     return w.origin[0] / NM_PER_MM, w.origin[1] / NM_PER_MM
 
 
-def footprint_text(layout: Layout, dialect: int = KICAD6, at: tuple[float, float] | None = None) -> str:
+def footprint_text(layout: Layout, dialect: int = KICAD6, at: tuple[float, float] | None = None,
+                   design: dict | None = None) -> str:
     """The filter as a footprint library file (.kicad_mod) in the given KiCad dialect.
 
     Bridged filters carry a copper zone with no net; give it the plane's net after
     placing (zone properties), or insert with ``board_footprint_text`` which writes it.
+    ``design`` (the spec dict it was built from under a board's pair) goes into the
+    ``DESIGN_PROPERTY`` that `check --board` reads back; the plugin places such a file.
     """
-    return _Writer(layout, dialect, at, False, "FIL**", None, 1).library()
+    writer = _Writer(layout, dialect, at, False, "FIL**", None, 1)
+    writer.design = design
+    return writer.library()
 
 
 def board_footprint_text(layout: Layout, board_version: int = KICAD6, at: tuple[float, float] | None = None,
