@@ -154,8 +154,8 @@ def fill_board(pcbnew, path: str, reference: str = "FIL1") -> tuple[dict[str, Fi
     """Load a saved board, fill every zone, return per-layer copper and facts about our footprint.
 
     KiCad 6 returns a footprint polygon in footprint coordinates (class FP_SHAPE), 7 and later in board
-    coordinates (checked with 6.0.11 and 9.0.2).  Footprint polygons count with their stroke (a filled polygon grows by half the
-    stroke width; an unfilled one is only its stroked outline).
+    coordinates (checked with 6.0.11 and 9.0.2).  Footprint polygons count with their stroke (a filled
+    polygon grows by half the stroke width; an unfilled one is only its stroked outline).
     """
     board = pcbnew.LoadBoard(str(path))
     ours = [fp for fp in board.GetFootprints() if fp.GetReference() == reference]
