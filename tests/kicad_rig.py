@@ -229,7 +229,8 @@ def drc_findings(pcbnew, path) -> list[str]:
     pcbnew.WriteDRCReport(board, str(report), millimetres, True)
     text = report.read_text()
     assert re.search(r"\*\* Found \d+ DRC violations \*\*", text), text
-    return sorted(line for line in text.splitlines() if line.startswith("[") and not line.startswith("[lib_footprint_issues]"))
+    findings = (line for line in text.splitlines() if line.startswith("["))
+    return sorted(line for line in findings if not line.startswith("[lib_footprint_issues]"))
 
 
 def _union(geoms):
