@@ -208,7 +208,7 @@ def test_stackup_and_layers_of_sample():
     st = board.stackup
     assert [(d.above, d.below) for d in st.dielectrics] == [
         ("F.Cu", "In1.Cu"), ("In1.Cu", "In2.Cu"), ("In2.Cu", "B.Cu")]
-    assert st.between("In1.Cu", "In2.Cu") == pytest.approx((0.1, 3.9))
+    assert st.between("In1.Cu", "In2.Cu") == pytest.approx((0.1, 4.1))
     # Series dielectrics (stacked parallel-plate capacitors): er = h / sum(h_i / er_i).
     thick = st.dielectrics[2]
     assert thick.thickness == pytest.approx(1.2)
@@ -216,6 +216,19 @@ def test_stackup_and_layers_of_sample():
     h, er = st.between("F.Cu", "In2.Cu")
     assert h == pytest.approx(0.1 + 0.035 + 0.1)
     assert er == pytest.approx(0.2 / (0.1 / 4.1 + 0.1 / 3.9))
+    # Loss tangent in series: complex permittivity er (1 - j tan d) per slab, h / e = sum(h_i / e_i), first order
+    # in tan d gives tan d = sum(h_i tan_i / er_i) / sum(h_i / er_i) (series capacitors; see series_loss_tangent).
+    # The two sub-layers of dielectric 3 carry 0.02 and 0.01.
+    weights = (0.5 / 4.2, 0.7 / 4.6)
+    assert thick.loss_tangent == pytest.approx((weights[0] * 0.02 + weights[1] * 0.01) / sum(weights), rel=1e-12)
+    assert st.loss_tangent("In1.Cu", "In2.Cu") == pytest.approx(0.02)
+    whole = (0.1 / 3.9, 0.1 / 4.1, *weights)
+    assert st.loss_tangent("F.Cu", "B.Cu") == pytest.approx(
+        (0.02 * (whole[0] + whole[1] + whole[2]) + 0.01 * whole[3]) / sum(whole), rel=1e-12)
+    # Independent check of the first-order formula: the exact series value of complex permittivities.
+    exact = sum(h / complex(e, -e * t) for h, e, t in ((0.5, 4.2, 0.02), (0.7, 4.6, 0.01)))
+    exact = 1.2 / exact
+    assert thick.loss_tangent == pytest.approx(-exact.imag / exact.real, rel=1e-3)
 
 
 def test_keepout_zone_inside_footprint_and_zone_with_hole():

@@ -77,8 +77,9 @@ _XY = re.compile(rb"\(xy\s+([^()]*)\)")
 class Dielectric:
     """One dielectric of the stack-up, between copper layers ``above`` and ``below``.
 
-    With sub-layers, ``thickness`` is their sum and ``epsilon_r`` the series value
-    h / sum(h_i / er_i) (stacked parallel-plate capacitors, basic electrostatics).
+    With sub-layers, ``thickness`` is their sum, ``epsilon_r`` the series value
+    h / sum(h_i / er_i) (stacked parallel-plate capacitors, basic electrostatics)
+    and ``loss_tangent`` the series value of ``series_loss_tangent``.
     """
 
     name: str
@@ -120,6 +121,34 @@ class Stackup:
             return None, None
         er = None if any(d.epsilon_r is None for d in layers) else h / sum(d.thickness / d.epsilon_r for d in layers)
         return h + sum(inner), er
+
+    def loss_tangent(self, a: str, b: str) -> float | None:
+        """Series loss tangent of the dielectrics between copper layers a and b (``series_loss_tangent``)."""
+        names = [n for n, _ in self.copper]
+        if a not in names or b not in names or a == b:
+            return None
+        i, j = sorted((names.index(a), names.index(b)))
+        between = set(names[i:j + 1])
+        layers = [d for d in self.dielectrics if d.above in between and d.below in between]
+        return series_loss_tangent([(d.thickness, d.epsilon_r, d.loss_tangent) for d in layers])
+
+
+def series_loss_tangent(layers) -> float | None:
+    """Loss tangent of dielectric slabs (h, er, tan d) stacked between two plates; None if any value is missing.
+
+    Each slab is a capacitor with complex permittivity er (1 - j tan d); in series,
+    h / e = sum(h_i / e_i).  To first order in tan d, 1 / (er (1 - j t)) = (1 + j t) / er,
+    so the real parts give the series er and the imaginary parts
+    tan d = sum(h_i tan d_i / er_i) / sum(h_i / er_i): each slab's loss weighted by
+    its share of the voltage across the stack (series capacitors; complex
+    permittivity as in Pozar, Microwave Engineering, 4th ed., sec. 1.3, from memory).
+    """
+    layers = list(layers)
+    if not layers or any(v is None or v <= 0 for h, er, _ in layers for v in (h, er)) \
+            or any(t is None for _, _, t in layers):
+        return None
+    weights = [h / er for h, er, _ in layers]
+    return sum(w * t for w, (_, _, t) in zip(weights, layers)) / sum(weights)
 
 
 @dataclass(frozen=True)
@@ -627,7 +656,8 @@ class _Reader:
                 er = h / sum(p[0] / p[1] for p in parts) if h and all(p[1] for p in parts) else None
                 if er is None:
                     self.warnings.append(f"stack-up layer {name!r} has no epsilon_r or thickness")
-                pending.append((name, kind, h, er, parts[0][2], parts[0][3], copper[-1][0] if copper else "",
+                tan_d = series_loss_tangent(p[:3] for p in parts)
+                pending.append((name, kind, h, er, tan_d, parts[0][3], copper[-1][0] if copper else "",
                                 tuple((p[0], p[1]) for p in parts) if len(parts) > 1 else ()))
         if [n for n, _ in copper] != list(self.copper):
             self.warnings.append("stack-up copper layers differ from the layer table; stack-up ignored")
