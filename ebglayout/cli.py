@@ -90,6 +90,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--plan", type=Path, help="TOML plan with [[filter]] tables (spec + pair or match) for many pairs")
     p.add_argument("--out", type=Path, required=True, help="the new .kicad_pcb (never the input)")
     p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and report.json here")
+    p.add_argument("--stackup-from-spec", action="store_true",
+                   help="keep the spec's [stackup] values where they disagree with the board's stack-up "
+                   "(else that is an error)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("kicad-package", "build the KiCad Plugin and Content Manager zip of the action plugin")
@@ -233,11 +236,13 @@ def _place(args) -> int:
     from .kicad.workflow import Request, load_plan, load_spec_dict, place
 
     if args.plan is not None:
-        if args.pair or args.spec:
-            raise EbgError("place: give either --plan, or --pair with --spec, not both")
+        if args.pair or args.spec or args.stackup_from_spec:
+            raise EbgError("place: give either --plan, or --pair with --spec (and --stackup-from-spec), not both; "
+                           "in a plan, stackup_from_spec = true goes into the [[filter]] table")
         requests = load_plan(args.plan)
     elif args.pair and args.spec:
-        requests = [Request(load_spec_dict(args.spec), str(args.spec), pair=tuple(args.pair))]
+        requests = [Request(load_spec_dict(args.spec), str(args.spec), pair=tuple(args.pair),
+                            stackup_from_spec=args.stackup_from_spec)]
     else:
         raise EbgError("place: needs --pair NET_P NET_N with --spec SPEC, or --plan PLAN")
     placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"))

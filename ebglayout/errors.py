@@ -29,6 +29,12 @@ class BoardError(EbgError):
     """A board file cannot be read; the message carries file, line and column."""
 
 
+def located(err: EbgError, where: str) -> EbgError:
+    """The same error with ``where`` (e.g. which plan entry and pair) put in front of its message."""
+    err.args = (f"{where}: {err}",) + err.args[1:]
+    return err
+
+
 def _show(value: object) -> str:
     if isinstance(value, str):
         return value if value else '""'

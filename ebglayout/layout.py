@@ -108,7 +108,7 @@ class Layout:
     @property
     def stackup(self) -> Stackup:
         """The dielectrics around each cut plane, for the physics readers."""
-        return stackup_of(self.spec)
+        return stackup_of(self.spec, self.spec.stackup_from_board)
 
 
 def as_multipolygon(geom) -> MultiPolygon:

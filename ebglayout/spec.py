@@ -171,6 +171,8 @@ class FilterSpec:
     track_obstacles: tuple[TrackObstacle, ...] = ()
     via_obstacles: tuple[ViaObstacle, ...] = ()
     echo: dict = field(default_factory=dict, compare=False, hash=False)
+    stackup_from_board: frozenset[str] = field(default=frozenset(), compare=False, hash=False)
+    """Stack-up keys ("stackup.er", ...) whose values `place` took from a board (see stackup.stackup_of)."""
 
     @property
     def trace_offset(self) -> float:

@@ -322,3 +322,53 @@ def slot_report(layout, filled: Filled, layer: str) -> dict:
         "designed": designed,
         "measured": measured,
     }
+
+
+def spec_variant(base: Path, folder: Path, name: str, **tables) -> Path:
+    """A copy of the spec ``base`` with whole tables replaced (``plane={...}``) or dropped (``stackup=None``)."""
+    import json
+    import tomllib
+
+    raw = tomllib.loads(Path(base).read_text())
+    for key, table in tables.items():
+        raw.pop(key, None) if table is None else raw.__setitem__(key, table)
+
+    def value(v) -> str:
+        if isinstance(v, dict):
+            return "{ " + ", ".join(f"{a} = {value(b)}" for a, b in v.items()) + " }"
+        if isinstance(v, list):
+            return "[" + ", ".join(value(b) for b in v) + "]"
+        return json.dumps(v)
+
+    lines = [f"{k} = {value(v)}" for k, v in raw.items() if not isinstance(v, dict)]
+    for table, values in ((k, v) for k, v in raw.items() if isinstance(v, dict)):
+        lines.append(f"[{table}]")
+        lines += [f"{k} = {value(v)}" for k, v in values.items()]
+    path = Path(folder) / f"{name}.toml"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def placed_slot_reports(pcbnew, path) -> list[tuple[str, str, dict]]:
+    """(reference, layer, ``slot_report``) for every placed filter on a saved board, after KiCad's own fill.
+
+    Each filter is rebuilt from the design its footprint carries (property ebglayout_spec).
+    """
+    from ebglayout.kicad.board import read_board
+    from ebglayout.kicad.workflow import placed_designs
+
+    out = []
+    for footprint, design in placed_designs(read_board(path)):
+        filled, facts = fill_board(pcbnew, str(path), reference=footprint.reference)
+        assert facts["found"] == 1 and facts["locked"]
+        layout = build_layout(spec_from_dict(design))
+        out += [(footprint.reference, cut.layer, slot_report(layout, filled[cut.layer], cut.layer))
+                for cut in layout.cuts]
+    return out
+
+
+def assert_exact_slots(report: dict) -> None:
+    """KiCad's fill leaves the designed slot: widths and 45-degree corner gaps within 5 um, area within 1 %."""
+    assert max(e[0] for e in report["width_errors"]) <= 0.005
+    assert max(e[0] for e in report["corner_errors"]) <= 0.005  # sharp: the 45-degree gap is slot * sqrt(2)
+    assert report["symdiff"] <= 0.01 * report["slot_area"]

@@ -255,9 +255,9 @@ def user_spec(name: str = "hx2_l0_tx_straight") -> dict:
 
 def test_engine_builds_the_filter_under_the_pair(sample):
     pair = next(p for p in find_pairs(sample) if p.base == "HX2_L0_TX")
-    spec = spec_from_dict(pair_spec_dict(sample, pair, user_spec()))
+    spec = spec_from_dict(pair_spec_dict(sample, pair, user_spec())[0])
     assert spec.nets == ("HX2_L0_TX_P", "HX2_L0_TX_N") and spec.plane_layers == ("In1.Cu",)
-    assert (spec.er, spec.h) == pytest.approx((3.9, 0.1))  # dielectric 2 (In1.Cu to In2.Cu) of the stack-up
+    assert (spec.er, spec.h) == pytest.approx((4.1, 0.1))  # dielectric 2 (In1.Cu to In2.Cu) of the stack-up
     layout = build_layout(spec)
     for trace in layout.traces:
         tracks = board_tracks(sample, trace.net, "F.Cu")
@@ -268,24 +268,58 @@ def test_engine_builds_the_filter_under_the_pair(sample):
     assert all(outline.contains(c.outer) for c in layout.cells)
 
 
-def test_spec_values_win_over_the_board(sample):
+def test_board_stackup_wins_and_a_disagreeing_spec_is_refused_unless_forced(sample):
+    """The board's stack-up gives every stack-up key it has; a spec value more than 1 % off is an error naming
+    the key, the spec's value and the board's, unless the user forces the spec's values."""
     pair = next(p for p in find_pairs(sample) if p.base == "HX2_L1_RX")
-    given = dict(user_spec(), stackup={"er": 3.5, "h": 0.2}, plane={"layers": ["In1.Cu"], "net": "GND"}, name="mine")
-    spec = spec_from_dict(pair_spec_dict(sample, pair, given))
-    assert (spec.er, spec.h, spec.name) == (3.5, 0.2, "mine")
-    assert given["stackup"] == {"er": 3.5, "h": 0.2} and "pair" not in given
+    design, from_board = pair_spec_dict(sample, pair, user_spec())
+    # F.Cu pair over In1.Cu: dielectric 1 (0.1 mm, er 3.9) to the pair, dielectric 2 (0.1 mm, er 4.1) beyond it,
+    # the cavity's far side being the +3V3 plane on In2.Cu; every layer of both has loss tangent 0.02.
+    stack = dict(design["stackup"])
+    assert stack.pop("pair_h") == pytest.approx([0.1])
+    assert stack == pytest.approx({"er": 4.1, "h": 0.1, "pair_er": 3.9, "tan_d": 0.02})
+    assert from_board == {"stackup.er", "stackup.h", "stackup.pair_h", "stackup.pair_er", "stackup.tan_d"}
+    within = dict(user_spec(), stackup={"er": 4.12, "h": 0.1004})  # within 1 %: rounding, the board's values used
+    assert pair_spec_dict(sample, pair, within)[0]["stackup"]["er"] == pytest.approx(4.1)
+    given = dict(user_spec(), stackup={"er": 3.8, "h": 0.09}, plane={"layers": ["In1.Cu"], "net": "GND"}, name="mine")
+    with pytest.raises(SpecError, match=r"^stackup\.er = 3\.8: the board's stack-up gives 4\.1 "):
+        pair_spec_dict(sample, pair, given)
+    with pytest.raises(SpecError, match=r"^stackup\.pair_h = 0\.2: the board's stack-up gives \[0\.1\] mm"):
+        pair_spec_dict(sample, pair, dict(user_spec(), stackup={"pair_h": 0.2}))
+    forced, from_board = pair_spec_dict(sample, pair, given, stackup_from_spec=True)
+    spec = spec_from_dict(forced)
+    assert (spec.er, spec.h, spec.pair_er, spec.name) == (3.8, 0.09, 3.9, "mine")
+    assert from_board == {"stackup.pair_h", "stackup.pair_er", "stackup.tan_d"}
+    assert given["stackup"] == {"er": 3.8, "h": 0.09} and "pair" not in given
+
+
+def test_stripline_stackup_from_the_board():
+    """Stripline on In2.Cu between the GND planes on In1.Cu and In3.Cu of the 6-layer board (hand-read from its
+    stack-up): pair_h 0.127 mm to each; pair_er and tan_d in series over the dielectrics used."""
+    board = read_board(STRIPLINE)
+    pair = next(p for p in find_pairs(board) if p.base == "HX2_L3_RX")
+    design, _ = pair_spec_dict(board, pair, user_spec())
+    stack = design["stackup"]
+    assert stack["pair_h"] == pytest.approx([0.127, 0.127]) and stack["pair_er"] == pytest.approx(3.6)
+    # cavity beyond In1.Cu: F.Cu (no plane under the pair, so the next copper layer): dielectric 1, 0.1 mm, er 4.1
+    assert (stack["h"], stack["er"]) == pytest.approx((0.1, 4.1))
+    # tan d from F.Cu to In4.Cu (the far cavity beyond In3.Cu ends at In4.Cu, the next copper layer):
+    # slabs (h, er, tan d) = (0.1, 4.1, 0.02), (0.127, 3.6, 0.01) twice, (0.8, 4.5, 0.02)
+    slabs = ((0.1, 4.1, 0.02), (0.127, 3.6, 0.01), (0.127, 3.6, 0.01), (0.8, 4.5, 0.02))
+    weights = [h / er for h, er, _ in slabs]
+    assert stack["tan_d"] == pytest.approx(sum(w * t for w, (_, _, t) in zip(weights, slabs)) / sum(weights))
 
 
 def test_units_other_than_mm_keep_board_numbers(sample):
     pair = next(p for p in find_pairs(sample) if p.base == "HX2_L1_RX")
-    in_mm = spec_from_dict(pair_spec_dict(sample, pair, user_spec()))
+    in_mm = spec_from_dict(pair_spec_dict(sample, pair, user_spec())[0])
     mil = user_spec()
     mil["units"] = "mil"
     mil["cut"] = dict(mil["cut"], patch=[v / 0.0254 for v in mil["cut"]["patch"]], slot=mil["cut"]["slot"] / 0.0254,
                       web=mil["cut"]["web"] / 0.0254)
     mil["rules"] = {k: (v / 0.0254 if k in ("min_slot", "min_copper", "corner_margin") else v)
                     for k, v in mil["rules"].items()}
-    in_mil = spec_from_dict(pair_spec_dict(sample, pair, mil))
+    in_mil = spec_from_dict(pair_spec_dict(sample, pair, mil)[0])
     assert in_mil.path == in_mm.path and in_mil.pair_width == in_mm.pair_width and in_mil.h == in_mm.h
 
 
@@ -298,7 +332,7 @@ def test_missing_stackup_needs_the_spec(sample):
     assert cavity(board, pair) is None
     with pytest.raises(SpecError, match="stackup.er"):
         pair_spec_dict(board, pair, user_spec())
-    spec = spec_from_dict(pair_spec_dict(board, pair, dict(user_spec(), stackup={"er": 4.0, "h": 0.1})))
+    spec = spec_from_dict(pair_spec_dict(board, pair, dict(user_spec(), stackup={"er": 4.0, "h": 0.1}))[0])
     assert spec.plane_outline is None and spec.plane_layers == ("In1.Cu",)
 
 
@@ -341,7 +375,7 @@ def test_obstacles_match_a_brute_force_search(sample, bounds):
 
 def test_obstacles_under_the_l0_filter(sample):
     pair = next(p for p in find_pairs(sample) if p.base == "HX2_L0_TX")
-    layout = build_layout(spec_from_dict(pair_spec_dict(sample, pair, user_spec())))
+    layout = build_layout(spec_from_dict(pair_spec_dict(sample, pair, user_spec())[0]))
     tracks, vias = obstacles(sample, layout.cuts[0].outline.bounds, ["In1.Cu"], exclude_nets=(pair.net_p, pair.net_n))
     irq = [t for t in tracks if t.net == "HX2_IRQ" and t.layer == "B.Cu"]
     assert irq and LineString(irq[0].points).intersects(layout.cuts[0].outline)

@@ -31,6 +31,7 @@ from shapely.ops import nearest_points
 from ..errors import SpecError
 from ..path import CentreLine, arc_geometry, offset_pieces, piece_length, piece_points, polyline_of
 from ..spec import Arc, Line, TrackObstacle, ViaObstacle
+from ..units import parse_length
 from .board import Board
 
 SUFFIXES = (("_DP", "_DN"), ("_P", "_N"), ("+", "-"), ("P", "N"))
@@ -587,35 +588,133 @@ def reference_layers(board: Board, plane_net: str = "GND") -> dict[str, tuple[st
     return {layer: plane_layers_for(board, layer, plane_net)[0] for layer in board.copper_layers}
 
 
-def cavity(board: Board, pair: BoardPair) -> tuple[float, float, str, str] | None:
-    """(h, er, from, to) of the dielectric under the first cut plane, towards the next plane away from the pair.
-
-    The next plane is the nearest copper layer beyond the cut plane with any
-    copper zone under the pair, else simply the next copper layer; with no layer
-    beyond, the dielectric between the pair and the plane is used.  None when
-    the board has no stack-up or the stack-up lacks the values.
-    """
-    if board.stackup is None or not pair.plane_layers:
-        return None
+def _nearest_plane(board: Board, layer: str, side: int, region) -> str | None:
+    """The first copper layer above (side -1) or below (+1) ``layer`` holding a copper zone of any net under ``region``."""
     order = board.copper_layers
-    plane = pair.plane_layers[0]
-    i, j = order.index(plane), order.index(pair.layer)
-    beyond = order[:i][::-1] if i < j else order[i + 1:]
-    region = polyline_of(pair.path)
-    target = next((o for o in beyond if _plane_zones(board, o, None, region)), beyond[0] if beyond else pair.layer)
-    h, er = board.stackup.between(plane, target)
-    if h is None or er is None:
-        return None
-    return h, er, plane, target
+    i = order.index(layer)
+    for other in (order[:i][::-1] if side < 0 else order[i + 1:]):
+        if _plane_zones(board, other, None, region):
+            return other
+    return None
 
 
-def pair_spec_dict(board: Board, pair: BoardPair, cut_spec_dict: dict) -> dict:
+def _zone_nets(board: Board, layer: str, region) -> str:
+    return ", ".join(sorted({z.net_name or "(no net)" for z in _plane_zones(board, layer, None, region)})) or "no plane"
+
+
+def board_layer_map(board: Board, layer: str, region) -> str:
+    """The board's copper layers top to bottom with the nets of their zones under ``region``, and the references."""
+    layers = ", ".join(f"{o} ({'the pair' if o == layer else _zone_nets(board, o, region)})"
+                       for o in board.copper_layers)
+    refs = [r for r in (_nearest_plane(board, layer, side, region) for side in (-1, 1)) if r]
+    implied = " and ".join(f"{r} ({_zone_nets(board, r, region)})" for r in refs) or "none"
+    return f"{board.name} copper under the pair: {layers}; the pair's reference planes there: {implied}"
+
+
+def verify_plane_layers(board: Board, pair: BoardPair, layers: list[str], net: str, given: bool) -> None:
+    """Refuse plane layers that are not the pair's reference planes on this board (raises SpecError).
+
+    Each layer must exist, carry a zone of ``net`` under the pair, and be the
+    nearest copper-zone layer on its side of the pair (the return current runs
+    on the nearest plane of any net); two layers must lie on opposite sides.
+    """
+    order, region = board.copper_layers, polyline_of(pair.path)
+    value = list(layers) if given else f"{list(layers)} (found on the board)"
+
+    def refuse(why: str) -> None:
+        raise SpecError("plane.layers", value, f"{why}; {board_layer_map(board, pair.layer, region)}")
+
+    for layer in layers:
+        if layer not in order:
+            refuse(f"{layer} is not a copper layer of {board.name}")
+        if layer == pair.layer:
+            refuse(f"{layer} is the layer {pair.base} is routed on")
+    sides = [1 if order.index(layer) > order.index(pair.layer) else -1 for layer in layers]
+    if len(layers) == 2 and sides[0] == sides[1]:
+        refuse(f"both planes lie {'below' if sides[0] > 0 else 'above'} {pair.layer}; a stripline cut goes into the "
+               "plane above and the plane below the pair")
+    for layer, side in zip(layers, sides):
+        if not _plane_zones(board, layer, net, region):
+            refuse(f"{layer} carries no {net} zone under {pair.base} (it has: {_zone_nets(board, layer, region)})")
+        nearest = _nearest_plane(board, pair.layer, side, region)
+        if nearest != layer:
+            refuse(f"{nearest} ({_zone_nets(board, nearest, region)}) lies between {pair.layer} and {layer}, so the "
+                   f"pair's return current runs on {nearest}, not on the {net} plane of {layer}")
+
+
+STACKUP_AGREEMENT = 0.01
+"""Relative difference within which a spec's stack-up value agrees with the board's (1 %: stack-up tables are
+rounded to two or three digits)."""
+
+
+def board_stackup(board: Board, pair_layer: str, plane_layers: list[str], region) -> dict[str, float | list[float]]:
+    """The stack-up keys (without "stackup.") the board's stack-up gives for a pair and its cut planes.
+
+    er, h: the cavity under the first cut plane, towards the nearest copper layer
+    beyond it with a zone under the pair (else the next copper layer).  pair_h: per
+    cut plane, pair layer to plane.  pair_er: the series value of the dielectrics
+    between the pair and its plane (stripline: between the two planes).  tan_d:
+    the series value over every dielectric from the outermost cavity to the pair.
+    A key is left out where the stack-up lacks the values.
+    """
+    if board.stackup is None or not plane_layers:
+        return {}
+    stack, order = board.stackup, board.copper_layers
+    found: dict[str, float | list[float]] = {}
+    span = [order.index(pair_layer)]
+    for k, plane in enumerate(plane_layers):
+        i, j = order.index(plane), order.index(pair_layer)
+        beyond = order[:i][::-1] if i < j else order[i + 1:]
+        target = next((o for o in beyond if _plane_zones(board, o, None, region)), beyond[0] if beyond else pair_layer)
+        span.append(order.index(target))
+        if k == 0:
+            h, er = stack.between(plane, target)
+            if h is not None and er is not None:
+                found.update(er=er, h=h)
+    heights = [stack.between(pair_layer, plane)[0] for plane in plane_layers]
+    if all(h is not None for h in heights):
+        found["pair_h"] = heights
+    ends = plane_layers if len(plane_layers) == 2 else [pair_layer, plane_layers[0]]
+    pair_er = stack.between(*ends)[1]
+    if pair_er is not None:
+        found["pair_er"] = pair_er
+    tan_d = stack.loss_tangent(order[min(span)], order[max(span)])
+    if tan_d is not None:
+        found["tan_d"] = tan_d
+    return found
+
+
+def cavity(board: Board, pair: BoardPair) -> tuple[float, float] | None:
+    """(h, er) of the dielectric under the pair's first cut plane (``board_stackup``), None if the board lacks them."""
+    found = board_stackup(board, pair.layer, list(pair.plane_layers), polyline_of(pair.path))
+    return (found["h"], found["er"]) if "h" in found else None
+
+
+def _agrees(spec_value, board_value, units: str | None) -> bool:
+    """A spec's stack-up value (a length in the file's ``units``, or a number when None) against the board's."""
+    if isinstance(board_value, list):
+        given = spec_value if isinstance(spec_value, list) else [spec_value] * len(board_value)
+        return len(given) == len(board_value) and all(_agrees(a, b, units) for a, b in zip(given, board_value))
+    try:
+        value = parse_length(spec_value, "stackup", units) if units else float(spec_value)
+    except (ValueError, TypeError):
+        return False
+    return math.isclose(value, board_value, rel_tol=STACKUP_AGREEMENT, abs_tol=1e-4)
+
+
+def pair_spec_dict(board: Board, pair: BoardPair, cut_spec_dict: dict,
+                   stackup_from_spec: bool = False) -> tuple[dict, frozenset[str]]:
     """The user's spec dict (cut, rules, stackup, ...) completed with the pair's geometry, ready for spec_from_dict.
 
-    The board decides pair.width/spacing/path/layer/nets; plane.layers, plane.net,
-    plane.outline (the Edge.Cuts polygon under the pair) and stackup.er/h come from
-    the board unless the spec gives them.  Lengths are written in mm (as "...mm"
-    strings when the spec's units are not mm), in KiCad's coordinates.
+    Returns the dict and the stack-up keys ("stackup.er", ...) whose values came
+    from the board.  The board decides pair.width/spacing/path/layer/nets;
+    plane.layers (the pair's reference planes of plane.net), plane.outline (the
+    Edge.Cuts polygon under the pair) come from the board unless the spec gives
+    them, and plane.layers are verified against the board (``verify_plane_layers``).
+    Stack-up: the board's value wherever its stack-up has one; a spec value that
+    differs by more than ``STACKUP_AGREEMENT`` is an error unless
+    ``stackup_from_spec``, which keeps the spec's values.  Lengths are written in
+    mm (as "...mm" strings when the spec's units are not mm), in KiCad's coordinates.
     """
     spec = copy.deepcopy(cut_spec_dict) if cut_spec_dict else {}
     units = str(spec.get("units", "mm")).lower()
@@ -634,27 +733,43 @@ def pair_spec_dict(board: Board, pair: BoardPair, cut_spec_dict: dict) -> dict:
     spec["pair"] = {**spec.get("pair", {}), "width": mm(pair.width), "spacing": mm(pair.spacing), "path": path,
                     "layer": pair.layer, "nets": [pair.net_p, pair.net_n]}
     plane = dict(spec.get("plane", {}))
-    if "layers" not in plane:
-        if not pair.plane_layers:
-            raise SpecError("plane.layers", "(none found)", f"no {pair.plane_net} zone next to {pair.layer} under "
-                            f"{pair.base}; give plane.layers in the spec")
-        plane["layers"] = list(pair.plane_layers)
     plane.setdefault("net", pair.plane_net)
+    region = polyline_of(pair.path)
+    given = "layers" in plane
+    if not given:
+        found = pair.plane_layers if plane["net"] == pair.plane_net else \
+            plane_layers_for(board, pair.layer, str(plane["net"]), region)[0]
+        if not found:
+            raise SpecError("plane.layers", "(none found)", f"no {plane['net']} zone next to {pair.layer} under "
+                            f"{pair.base}; give plane.layers in the spec")
+        plane["layers"] = list(found)
+    layers = plane["layers"]
+    if isinstance(layers, list) and all(isinstance(x, str) for x in layers):
+        verify_plane_layers(board, pair, layers, str(plane["net"]), given)
     outline = _outline_under(board, pair)
     if "outline" not in plane and outline is not None:
         plane["outline"] = [point(p) for p in outline]
     spec["plane"] = plane
     stack = dict(spec.get("stackup", {}))
-    if "er" not in stack or "h" not in stack:
-        found = cavity(board, pair)
-        if found is None:
-            missing = "er" if "er" not in stack else "h"
-            raise SpecError(f"stackup.{missing}", "(missing)", "the board's stack-up does not give it; "
+    from_board = set()
+    for key, value in board_stackup(board, pair.layer, list(layers), region).items():
+        length = key in ("h", "pair_h")
+        if key in stack and not _agrees(stack[key], value, units if length else None):
+            if stackup_from_spec:
+                continue
+            shown = [round(v, 4) for v in value] if isinstance(value, list) else round(value, 4)
+            raise SpecError(f"stackup.{key}", stack[key], f"the board's stack-up gives {shown}"
+                            f"{' mm' if length else ''} here (agreement within {STACKUP_AGREEMENT:.0%}); "
+                            "remove the key to use the board's value, or force the spec's with --stackup-from-spec "
+                            "(plan: stackup_from_spec = true)")
+        stack[key] = [mm(v) for v in value] if isinstance(value, list) else mm(value) if length else value
+        from_board.add(f"stackup.{key}")
+    for key in ("er", "h"):
+        if key not in stack:
+            raise SpecError(f"stackup.{key}", "(missing)", "the board's stack-up does not give it; "
                             "add stackup.er and stackup.h to the spec")
-        stack.setdefault("er", found[1])
-        stack.setdefault("h", mm(found[0]))
     spec["stackup"] = stack
-    return spec
+    return spec, frozenset(from_board)
 
 
 def _file_name(text: str) -> str:

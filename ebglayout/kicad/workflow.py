@@ -24,7 +24,7 @@ from shapely.ops import linemerge
 
 from ..checks import CheckReport, run_checks
 from ..checks.rules import CheckContext, RuleResult
-from ..errors import BoardError, SpecError
+from ..errors import BoardError, EbgError, SpecError, located
 from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
@@ -46,6 +46,15 @@ class Request:
     source: str
     pair: tuple[str, str] | None = None
     match: str | None = None
+    stackup_from_spec: bool = False
+    """Keep the spec's stack-up values where they disagree with the board's (else that is an error)."""
+    label: str = ""
+    """Where the request came from, for error messages: e.g. 'plan.toml filter[1] (match "HX2_L*")'."""
+
+    def where(self, pair: BoardPair | None = None) -> str:
+        """The request (and the pair) an error belongs to."""
+        parts = [self.label] if self.label else []
+        return " ".join(parts + ([f"under pair {pair.base} ({pair.net_p}/{pair.net_n})"] if pair else []))
 
 
 @dataclass
@@ -88,8 +97,9 @@ def load_plan(path: str | Path) -> list[Request]:
     requests = []
     for i, item in enumerate(raw["filter"]):
         key = f"filter[{i}]"
-        if not isinstance(item, dict) or "spec" not in item or set(item) - {"spec", "pair", "match"}:
-            raise SpecError(key, item, "must be {spec = \"path.toml\", pair = [\"P\", \"N\"]} or {spec = ..., match = \"LANE*\"}")
+        if not isinstance(item, dict) or "spec" not in item or set(item) - {"spec", "pair", "match", "stackup_from_spec"}:
+            raise SpecError(key, item, "must be {spec = \"path.toml\", pair = [\"P\", \"N\"]} or {spec = ..., match = "
+                            "\"LANE*\"}, optionally with stackup_from_spec = true")
         if ("pair" in item) == ("match" in item):
             raise SpecError(key, item, "give exactly one of pair = [P, N] and match = \"pattern\"")
         pair = item.get("pair")
@@ -97,8 +107,13 @@ def load_plan(path: str | Path) -> list[Request]:
             raise SpecError(f"{key}.pair", pair, "must be two net names [P, N]")
         if "match" in item and not isinstance(item["match"], str):
             raise SpecError(f"{key}.match", item["match"], "must be a shell-style pattern string")
+        if not isinstance(item.get("stackup_from_spec", False), bool):
+            raise SpecError(f"{key}.stackup_from_spec", item["stackup_from_spec"], "must be true or false")
         spec_path = (path.parent / str(item["spec"])).resolve()
-        requests.append(Request(load_spec_dict(spec_path), str(spec_path), tuple(pair) if pair else None, item.get("match")))
+        chosen = f"pair {pair}" if pair else f"match \"{item['match']}\""
+        requests.append(Request(load_spec_dict(spec_path), str(spec_path), tuple(pair) if pair else None,
+                                item.get("match"), item.get("stackup_from_spec", False),
+                                label=f"{path.name} {key} ({chosen})"))
     return requests
 
 
@@ -278,9 +293,9 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
 
     user = {k: (dict(v) if isinstance(v, dict) else v) for k, v in request.spec.items()}
     user.get("plane", {}).pop("outline", None)  # on a board, the board's Edge.Cuts decide the outline
-    design = pair_spec_dict(board, pair, user)
+    design, from_board = pair_spec_dict(board, pair, user, request.stackup_from_spec)
     design["name"] = _filter_name(pair.base, request.spec, request.source)
-    spec = spec_from_dict(design, default_name=design["name"])
+    spec = replace(spec_from_dict(design, default_name=design["name"]), stackup_from_board=from_board)
     layout = build_layout(spec)
     if layout.route_generated:
         raise SpecError("cut.style", "folded", f"{pair.base} is routed straight on the board; `place` never re-routes "
@@ -298,11 +313,16 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
 def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
     """Every filter of every request, inserted into one new board text with one merged rule file."""
     pairs = _pairs_for(board, requests)
-    try:
-        jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
-    except SpecError:
-        pairs = find_pairs(board)  # the error then lists every pair on the board
-        jobs = [(request, pair) for request in requests for pair in select_pairs(pairs, request)]
+    jobs = []
+    for request in requests:
+        try:
+            try:
+                chosen = select_pairs(pairs, request)
+            except SpecError:
+                chosen = select_pairs(find_pairs(board), request)  # the error then lists every pair on the board
+        except EbgError as err:
+            raise located(err, request.where()) if request.label else err
+        jobs += [(request, pair) for pair in chosen]
     seen: set[str] = set()
     for _, pair in jobs:
         if pair.base in seen:
@@ -314,7 +334,10 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
     for request, pair in (progress(jobs) if progress else jobs):
         reference = _next_reference(board, taken)
         taken.add(reference)
-        placed.append(build_on_board(board, request, pair, reference, texts, references))
+        try:
+            placed.append(build_on_board(board, request, pair, reference, texts, references))
+        except EbgError as err:
+            raise located(err, request.where(pair)) from None
     items = [p.item for p in placed]
     new_text = with_items(board, items)
     rules = merge_rules(existing_rules, rules_text(*(p.result.layout for p in placed)))
@@ -327,10 +350,10 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
     notes = list(board.warnings)
     for p in placed:
         notes += [f"{p.pair.base}: {w}" for w in p.pair.warnings]
-        if board.stackup is None:
-            spec = p.result.layout.spec
-            notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
-                         f"stackup.h = {spec.h:g} mm")
+        sources = p.result.layout.stackup.sources
+        kept = [key for key, source in sources if source == "spec"]
+        if kept:
+            notes.append(f"{p.pair.base}: stack-up values from the spec, not the board: {', '.join(kept)}")
     return Placement(placed, new_text, rules, risks, notes)
 
 
