@@ -181,6 +181,34 @@ def test_stripline_both_planes_and_alignment():
     assert errors and errors[0].value == pytest.approx(100 * (3.0 - 0.5) / 3.0, abs=0.5)
 
 
+@pytest.mark.parametrize("pair_layer, planes, side", [
+    ("In3.Cu", ["In4.Cu", "In5.Cu"], "below"), ("In3.Cu", ["In1.Cu", "In2.Cu"], "above"),
+    ("In2.Cu", ["In3.Cu", "B.Cu"], "below"), ("In30.Cu", ["F.Cu", "In29.Cu"], "above")])
+def test_stripline_planes_on_one_side_of_the_pair_fail(pair_layer, planes, side):
+    """Both cut planes on one side of the pair: the pair is not between them, whatever the overlap (100 % here).
+    Without a board the side comes from KiCad's copper layer order: F.Cu, In1.Cu .. In30.Cu, B.Cu (KiCad's
+    board file format documentation, layer names)."""
+    layout = make(pair={"layer": pair_layer}, plane={"layers": planes})
+    (error,) = findings(layout, "stripline-cut")
+    assert error.severity == "error" and f"both lie {side} {pair_layer}" in error.message
+    rule = next(r for r in run_checks(layout).results if r.rule == "stripline-cut")
+    assert rule.worst == pytest.approx(100.0)  # aligned: only the sides are wrong
+
+
+def test_stripline_planes_follow_the_board_order_and_references():
+    """With a board, its copper order decides the sides and its planes next to the pair must be the cut planes."""
+    layout = make(pair={"layer": "In2.Cu"}, plane={"layers": ["In1.Cu", "In3.Cu"]})
+    order = ("F.Cu", "In1.Cu", "In2.Cu", "In3.Cu", "In4.Cu", "B.Cu")
+    good = CheckContext(copper_layers=order, references={"In2.Cu": ("In1.Cu", "In3.Cu")})
+    assert findings(layout, "stripline-cut", good) == []
+    other = CheckContext(copper_layers=order, references={"In2.Cu": ("In1.Cu", "In4.Cu")})
+    (error,) = findings(layout, "stripline-cut", other)
+    assert "the planes next to In2.Cu on the board are In1.Cu and In4.Cu" in error.message
+    flipped = ("F.Cu", "In2.Cu", "In1.Cu", "In3.Cu", "B.Cu")  # a board order in which both lie below the pair
+    (error,) = findings(layout, "stripline-cut", CheckContext(copper_layers=flipped))
+    assert "both lie below In2.Cu" in error.message
+
+
 def test_other_nets_tracks_and_vias():
     layout = make()
     cell = layout.cells[1]

@@ -57,7 +57,9 @@ RULES: tuple[Rule, ...] = (
          "geometry: overlapping cells are not the drawn filter"),
     Rule("plane-edge", "every cell inside the plane outline and away from its edge", "edge_clearance = 0.5 mm",
          "common practice: a cut near the plane edge couples to the board-edge resonance"),
-    Rule("stripline-cut", "a pair between two planes has the cut in both, aligned (patch overlap >= 95 %)", "95 %",
+    Rule("stripline-cut", "a pair between two planes has the cut in both, aligned (patch overlap >= 95 %); the two cut "
+         "planes lie one on each side of the pair (board: they are its nearest planes; no board: by KiCad's layer "
+         "order)", "95 %",
          "common practice: with one plane left solid the return current takes it and the notch mostly vanishes"),
     Rule("foreign-track", "no other net's track referenced to the cut plane crosses a slot or runs over a patch", "none",
          "common practice: a track over a slot or a floating patch loses its return path"),
@@ -108,6 +110,8 @@ class CheckContext:
     sandwiched: bool | None = None
     references: dict[str, tuple[str, ...]] | None = None
     """Signal layer -> plane layers it is referenced to; None = infer from layer names."""
+    copper_layers: tuple[str, ...] | None = None
+    """The board's copper layers top to bottom; None = KiCad's order by name (F.Cu, In1.Cu..In30.Cu, B.Cu)."""
     estimate: object = None
     """The notch estimate (ebglayout.estimate), when one was made."""
 
@@ -360,6 +364,16 @@ def stripline_cut(layout: Layout, ctx: CheckContext) -> RuleResult:
             r.add("warning", f"the pair is on inner layer {spec.pair_layer} and only {layout.cuts[0].layer} is cut; "
                   "if it is referenced to planes on both sides, cut both", centre)
         return r
+    r.checked += 1
+    sides = {_side(cut.layer, spec.pair_layer, ctx) for cut in layout.cuts}
+    names = " and ".join(cut.layer for cut in layout.cuts)
+    if len(sides) == 1 and not math.isnan(next(iter(sides))):
+        r.add("error", f"{names} both lie {'below' if sides == {1.0} else 'above'} {spec.pair_layer}: a stripline "
+              "cut belongs in the pair's two reference planes, one above and one below", centre)
+    references = (ctx.references or {}).get(spec.pair_layer)
+    if references is not None and set(references) != {cut.layer for cut in layout.cuts}:
+        r.add("error", f"the planes next to {spec.pair_layer} on the board are {' and '.join(references) or 'none'}, "
+              f"not {names}", centre)
     first = layout.cuts[0]
     for other in layout.cuts[1:]:
         r.checked += 1
@@ -381,6 +395,18 @@ def _layer_index(name: str) -> float:
     if name.startswith("In") and name.endswith(".Cu") and name[2:-3].isdigit():
         return float(name[2:-3])
     return math.nan
+
+
+def _side(plane: str, pair_layer: str, ctx: CheckContext) -> float:
+    """+1 when ``plane`` lies below ``pair_layer``, -1 above, nan when the order is unknown."""
+    if ctx.copper_layers is not None:
+        order = ctx.copper_layers
+        if plane not in order or pair_layer not in order:
+            return math.nan
+        a, b = order.index(plane), order.index(pair_layer)
+    else:
+        a, b = _layer_index(plane), _layer_index(pair_layer)
+    return math.nan if math.isnan(a - b) or a == b else math.copysign(1.0, a - b)
 
 
 def _references(layer: str, spec: FilterSpec, ctx: CheckContext) -> list[str]:

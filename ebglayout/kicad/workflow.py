@@ -192,7 +192,7 @@ def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
     if references is None:
         references = reference_planes(board)
     return CheckContext(tracks=tracks, vias=vias, plane_outline=outline, sandwiched=len(found) == 2,
-                        references=references, estimate=estimate)
+                        references=references, copper_layers=board.copper_layers, estimate=estimate)
 
 
 def board_skeleton(board: Board, nets: bool = False, footprints: bool = False) -> str:
