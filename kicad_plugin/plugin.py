@@ -40,9 +40,15 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
 
     The footprint is loaded through KiCad's own footprint loader from a
     temporary library, so KiCad builds every item; the rule file beside the
-    board gets our rule (merged); zones are refilled.
+    board gets our rule (merged); zones are refilled.  All or nothing: every
+    check and the rule file's new text come first, the rule file is swapped
+    in only once the footprint sits on the board, and a failure on the board
+    takes the footprint out again.
     """
     workflow, footprint = _ebglayout()
+    rules_path = _rules_path(board)
+    if rules_path is None:
+        raise RuntimeError("save the board once first: the fill rule is written beside it as <board>.kicad_dru")
     tracks = tracks if tracks is not None else compat.selected_tracks(board)
     nets = sorted({t.GetNetname() for t in tracks})
     if not nets:
@@ -66,17 +72,23 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
         fp = pcbnew.FootprintLoad(str(library), name)
         if fp is None:
             raise RuntimeError("KiCad could not load the generated footprint")
-    board.Add(fp)
-    fp.SetReference(placed.reference)
-    compat.set_position_mm(fp, *footprint.footprint_origin(layout))
-    compat.set_locked(fp)
-    net_code = board.GetNetcodeFromNetname(layout.spec.plane_net) if hasattr(board, "GetNetcodeFromNetname") else None
     priority = workflow.zone_priority_for(placement.board_text, layout, layout.spec.plane_net)
-    for zone in compat.footprint_zones(fp):
-        if not zone.GetIsRuleArea() and net_code is not None:
-            zone.SetNetCode(net_code)
-            compat.set_zone_priority(zone, priority)
-    _write_rules(board, placement.rules_text)
+    staged = rules_path.with_name(f".{rules_path.name}.part")
+    staged.write_text(placement.rules_text, encoding="utf-8")
+    try:
+        board.Add(fp)
+        try:
+            _set_up(board, fp, placed.reference, layout, footprint.footprint_origin(layout), priority)
+        except Exception:
+            board.Remove(fp)
+            # Remove hands the footprint to Python; its destructor then left the board's footprint list
+            # unreadable from Python (seen with 6.0.11), so the removed footprint is left unfreed instead.
+            fp.thisown = 0
+            raise
+    except Exception:
+        staged.unlink(missing_ok=True)
+        raise
+    os.replace(staged, rules_path)
     compat.fill_all_zones(board)
     compat.refresh()
     checks = placed.result.checks
@@ -105,13 +117,16 @@ def _existing_rules(board) -> str | None:
     return path.read_text(encoding="utf-8") if path is not None and path.exists() else None
 
 
-def _write_rules(board, text: str) -> None:
-    path = _rules_path(board)
-    if path is None:
-        raise RuntimeError("save the board once first: the fill rule is written beside it as <board>.kicad_dru")
-    tmp = path.with_name(f".{path.name}.part")
-    tmp.write_text(text, encoding="utf-8")
-    os.replace(tmp, path)
+def _set_up(board, fp, reference: str, layout, origin, priority: int) -> None:
+    """Name, place and lock the added footprint; its copper zones get the plane's net and the priority to win."""
+    fp.SetReference(reference)
+    compat.set_position_mm(fp, *origin)
+    compat.set_locked(fp)
+    net_code = board.GetNetcodeFromNetname(layout.spec.plane_net) if hasattr(board, "GetNetcodeFromNetname") else None
+    for zone in compat.footprint_zones(fp):
+        if not zone.GetIsRuleArea() and net_code is not None:
+            zone.SetNetCode(net_code)
+            compat.set_zone_priority(zone, priority)
 
 
 def _message(text: str, title: str = "ebglayout") -> None:

@@ -214,3 +214,31 @@ def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, cap
         check_board(broken, jobs=1)
     with pytest.raises(type(serial_error.value), match=str(serial_error.value).split(":")[0]):
         check_board(broken, jobs=2)
+
+
+def test_action_plugin_changes_everything_or_nothing(pcbnew, board_copy, tmp_path, plugin_module, monkeypatch):
+    """A board never saved has no place for the rule file: the action refuses before it touches the board.  A
+    failure while the footprint is being set up on the board takes it out again and leaves the rule file as it was.
+    Counted with KiCad's own BOARD (GetFootprints)."""
+    live = pcbnew.LoadBoard(str(board_copy))
+    count = len(live.GetFootprints())
+    track = next(t for t in live.GetTracks() if t.GetNetname() == "HX2_L0_TX_P")
+    live.SetFileName("")
+    with pytest.raises(RuntimeError, match="save the board once first"):
+        plugin_module.place_under_selection(live, str(STRAIGHT), tracks=[track])
+    assert len(live.GetFootprints()) == count
+
+    live = pcbnew.LoadBoard(str(board_copy))
+    track = next(t for t in live.GetTracks() if t.GetNetname() == "HX2_L0_TX_P")
+    rules = board_copy.with_suffix(".kicad_dru")
+    rules.write_text("(version 1)\n")
+
+    def broken(fp):
+        raise RuntimeError("lock failed")
+
+    monkeypatch.setattr(plugin_module.compat, "set_locked", broken)
+    with pytest.raises(RuntimeError, match="lock failed"):
+        plugin_module.place_under_selection(live, str(STRAIGHT), tracks=[track])
+    assert len(live.GetFootprints()) == count
+    assert rules.read_text() == "(version 1)\n" and sorted(p.name for p in tmp_path.iterdir() if p.name.startswith("."))\
+        == []
