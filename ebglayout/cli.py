@@ -227,6 +227,10 @@ def _pairs(args) -> int:
         print(f"{r['pair']:<16} {r['nets'][0]}/{r['nets'][1]} on {r['layer']}: width {r['width']:g} mm, "
               f"spacing {r['spacing']:g} mm, length {r['length']:.3f} mm (P {r['length_p']:.3f}, N {r['length_n']:.3f}), "
               f"planes {'+'.join(r['planes']) or 'none'}; straight runs: {runs}")
+        if r["stackup"]:
+            print(f"    reference planes {'+'.join(r['references'])}; board stack-up for a cut there: " + ", ".join(
+                f"{key} {'/'.join(f'{v:g}' for v in value) if isinstance(value, list) else f'{value:g}'}"
+                f"{' mm' if key in ('h', 'pair_h') else ''}" for key, value in r["stackup"].items()))
         for warning in r["warnings"]:
             print(f"    note: {warning}")
     return 0

@@ -68,6 +68,12 @@ def test_pairs_lists_the_sample_pairs(capsys):
     l0 = names["HX2_L0_TX"]
     assert l0["width"] == pytest.approx(0.12) and l0["spacing"] == pytest.approx(0.15, abs=1e-6)
     assert l0["planes"] == ["In1.Cu"] and max(r["length"] for r in l0["straight_runs"]) > 15
+    # the stack-up `place` takes, hand-read from the board's (setup (stackup ...)): F.Cu to In1.Cu 0.1 mm of
+    # er 3.9; the cavity In1.Cu to the +3V3 plane on In2.Cu 0.1 mm of er 4.1; loss tangent 0.02 throughout
+    assert l0["references"] == ["In1.Cu"]
+    assert l0["stackup"] == {"er": 4.1, "h": 0.1, "pair_h": [0.1], "pair_er": 3.9, "tan_d": 0.02}
+    usb = names["HX2_USB_D"]  # on B.Cu, under the +3V3 plane on In2.Cu, with the GND plane beyond it
+    assert usb["references"] == ["In2.Cu"] and usb["stackup"]["pair_h"] == [1.2]
 
 
 def test_place_keeps_input_and_every_other_byte(board_copy, tmp_path, capsys):

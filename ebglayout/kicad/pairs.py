@@ -602,11 +602,16 @@ def _zone_nets(board: Board, layer: str, region) -> str:
     return ", ".join(sorted({z.net_name or "(no net)" for z in _plane_zones(board, layer, None, region)})) or "no plane"
 
 
+def nearest_planes(board: Board, layer: str, region) -> list[str]:
+    """The nearest copper-zone layer (any net) above and below ``layer`` under ``region``: its reference planes."""
+    return [r for r in (_nearest_plane(board, layer, side, region) for side in (-1, 1)) if r]
+
+
 def board_layer_map(board: Board, layer: str, region) -> str:
     """The board's copper layers top to bottom with the nets of their zones under ``region``, and the references."""
     layers = ", ".join(f"{o} ({'the pair' if o == layer else _zone_nets(board, o, region)})"
                        for o in board.copper_layers)
-    refs = [r for r in (_nearest_plane(board, layer, side, region) for side in (-1, 1)) if r]
+    refs = nearest_planes(board, layer, region)
     implied = " and ".join(f"{r} ({_zone_nets(board, r, region)})" for r in refs) or "none"
     return f"{board.name} copper under the pair: {layers}; the pair's reference planes there: {implied}"
 

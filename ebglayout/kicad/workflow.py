@@ -27,13 +27,14 @@ from ..checks.rules import CheckContext, RuleResult
 from ..errors import BoardError, EbgError, SpecError, located
 from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
-from ..path import piece_points
+from ..path import piece_points, polyline_of
 from ..pipeline import FilterResult, can_fork, write_filter
 from ..spec import Arc, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
-from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
+from .pairs import (BoardPair, board_stackup, find_pairs, nearest_planes, obstacles, pair_nets, pair_spec_dict,
+                    plane_layers_for)
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -545,15 +546,26 @@ def _design_nets(design: dict) -> list[str]:
 
 
 def pair_table(board: Board, min_run: float = 2.0) -> list[dict]:
-    """`ebglayout pairs`: every pair found, with the straight runs long enough for a filter."""
+    """`ebglayout pairs`: every pair found, with the straight runs long enough for a filter.
+
+    ``planes`` are the pair's nearest planes of the GND net, ``references`` its
+    nearest planes of any net (the return path; `place` cuts only those), and
+    ``stackup`` the stack-up keys `place` takes from the board for a filter in
+    the references (``pairs.board_stackup``), without "stackup.".
+    """
     rows = []
     for bp in find_pairs(board):
         runs = [r for r in bp.straight_runs if r.length >= min_run]
+        region = polyline_of(bp.path)
+        references = nearest_planes(board, bp.layer, region)
         rows.append({
             "pair": bp.base, "nets": [bp.net_p, bp.net_n], "layer": bp.layer,
             "width": round(bp.width, 6), "spacing": round(bp.spacing, 6),
             "length": round(bp.length, 4), "length_p": round(bp.length_p, 4), "length_n": round(bp.length_n, 4),
             "planes": list(bp.plane_layers),
+            "references": references,
+            "stackup": {key: [round(v, 6) for v in value] if isinstance(value, list) else round(value, 6)
+                        for key, value in board_stackup(board, bp.layer, references, region).items()},
             "straight_runs": [{"start": [round(r.start[0], 4), round(r.start[1], 4)],
                                "end": [round(r.end[0], 4), round(r.end[1], 4)], "length": round(r.length, 4)}
                               for r in runs],
