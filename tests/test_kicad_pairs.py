@@ -22,10 +22,10 @@ from shapely.geometry import LineString, box
 
 from ebglayout.errors import SpecError
 from ebglayout.kicad.board import parse_board, read_board
-from ebglayout.kicad.pairs import (BoardPair, cavity, find_pairs, obstacles, pair_nets, pair_spec_dict,
+from ebglayout.kicad.pairs import (BoardPair, cavity, find_pairs, obstacles, pair_nets, pair_spec_dict, stackup_notes,
                                    plane_layers_for, reference_layers)
 from ebglayout.layout import build_layout
-from ebglayout.path import offset_pieces, piece_points
+from ebglayout.path import offset_pieces, piece_points, polyline_of
 from ebglayout.spec import Arc, Line, spec_from_dict
 
 HERE = Path(__file__).resolve().parent
@@ -308,6 +308,9 @@ def test_stripline_stackup_from_the_board():
     slabs = ((0.1, 4.1, 0.02), (0.127, 3.6, 0.01), (0.127, 3.6, 0.01), (0.8, 4.5, 0.02))
     weights = [h / er for h, er, _ in slabs]
     assert stack["tan_d"] == pytest.approx(sum(w * t for w, (_, _, t) in zip(weights, slabs)) / sum(weights))
+    # one er/h pair cannot describe both cavities here (0.1 mm of er 4.1 and 0.8 mm of er 4.5): place says so
+    (note,) = stackup_notes(board, pair.layer, list(pair.plane_layers), polyline_of(pair.path))
+    assert "beyond In3.Cu (to In4.Cu: 0.8 mm, er 4.5) differs from the one beyond In1.Cu" in note
 
 
 def test_units_other_than_mm_keep_board_numbers(sample):

@@ -589,7 +589,7 @@ def reference_layers(board: Board, plane_net: str = "GND") -> dict[str, tuple[st
 
 
 def _nearest_plane(board: Board, layer: str, side: int, region) -> str | None:
-    """The first copper layer above (side -1) or below (+1) ``layer`` holding a copper zone of any net under ``region``."""
+    """The first copper layer above (side -1) or below (+1) ``layer`` with a copper zone of any net under ``region``."""
     order = board.copper_layers
     i = order.index(layer)
     for other in (order[:i][::-1] if side < 0 else order[i + 1:]):
@@ -666,16 +666,10 @@ def board_stackup(board: Board, pair_layer: str, plane_layers: list[str], region
         return {}
     stack, order = board.stackup, board.copper_layers
     found: dict[str, float | list[float]] = {}
-    span = [order.index(pair_layer)]
-    for k, plane in enumerate(plane_layers):
-        i, j = order.index(plane), order.index(pair_layer)
-        beyond = order[:i][::-1] if i < j else order[i + 1:]
-        target = next((o for o in beyond if _plane_zones(board, o, None, region)), beyond[0] if beyond else pair_layer)
-        span.append(order.index(target))
-        if k == 0:
-            h, er = stack.between(plane, target)
-            if h is not None and er is not None:
-                found.update(er=er, h=h)
+    cavities = _cavities(board, pair_layer, plane_layers, region)
+    h, er = cavities[0][2:]
+    if h is not None and er is not None:
+        found.update(er=er, h=h)
     heights = [stack.between(pair_layer, plane)[0] for plane in plane_layers]
     if all(h is not None for h in heights):
         found["pair_h"] = heights
@@ -683,10 +677,35 @@ def board_stackup(board: Board, pair_layer: str, plane_layers: list[str], region
     pair_er = stack.between(*ends)[1]
     if pair_er is not None:
         found["pair_er"] = pair_er
+    span = [order.index(layer) for _, target, _, _ in cavities for layer in (pair_layer, target)]
     tan_d = stack.loss_tangent(order[min(span)], order[max(span)])
     if tan_d is not None:
         found["tan_d"] = tan_d
     return found
+
+
+def _cavities(board: Board, pair_layer: str, plane_layers: list[str], region) -> list[tuple[str, str, float | None,
+                                                                                          float | None]]:
+    """(plane, far layer, h, er) of the cavity beyond each cut plane, away from the pair (``board_stackup``)."""
+    order, out = board.copper_layers, []
+    for plane in plane_layers:
+        i, j = order.index(plane), order.index(pair_layer)
+        beyond = order[:i][::-1] if i < j else order[i + 1:]
+        target = next((o for o in beyond if _plane_zones(board, o, None, region)), beyond[0] if beyond else pair_layer)
+        out.append((plane, target, *board.stackup.between(plane, target)))
+    return out
+
+
+def stackup_notes(board: Board, pair_layer: str, plane_layers: list[str], region) -> list[str]:
+    """Where the board's stack-up has more to say than one cavity value can carry (two different stripline cavities)."""
+    if board.stackup is None or len(plane_layers) < 2:
+        return []
+    (plane, far, h, er), *others = _cavities(board, pair_layer, plane_layers, region)
+    return [f"the cavity beyond {o_plane} (to {o_far}: {o_h:g} mm, er {o_er:g}) differs from the one beyond {plane} "
+            f"(to {far}: {h:g} mm, er {er:g}) that stackup.er and stackup.h describe"
+            for o_plane, o_far, o_h, o_er in others
+            if None not in (h, er, o_h, o_er) and not (math.isclose(h, o_h, rel_tol=STACKUP_AGREEMENT)
+                                                    and math.isclose(er, o_er, rel_tol=STACKUP_AGREEMENT))]
 
 
 def cavity(board: Board, pair: BoardPair) -> tuple[float, float] | None:

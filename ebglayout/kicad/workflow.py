@@ -34,7 +34,7 @@ from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
 from .pairs import (BoardPair, board_stackup, find_pairs, nearest_planes, obstacles, pair_nets, pair_spec_dict,
-                    plane_layers_for)
+                    plane_layers_for, stackup_notes)
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -89,6 +89,10 @@ def load_spec_dict(path: str | Path) -> dict:
         raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
 
 
+PLAN_KEYS = {"spec", "pair", "match", "stackup_from_spec"}
+"""The keys a plan's [[filter]] table may hold."""
+
+
 def load_plan(path: str | Path) -> list[Request]:
     """A plan: one ``[[filter]]`` table per rule, ``spec`` relative to the plan, and ``pair = [P, N]`` or ``match``."""
     path = Path(path)
@@ -98,7 +102,7 @@ def load_plan(path: str | Path) -> list[Request]:
     requests = []
     for i, item in enumerate(raw["filter"]):
         key = f"filter[{i}]"
-        if not isinstance(item, dict) or "spec" not in item or set(item) - {"spec", "pair", "match", "stackup_from_spec"}:
+        if not isinstance(item, dict) or "spec" not in item or set(item) - PLAN_KEYS:
             raise SpecError(key, item, "must be {spec = \"path.toml\", pair = [\"P\", \"N\"]} or {spec = ..., match = "
                             "\"LANE*\"}, optionally with stackup_from_spec = true")
         if ("pair" in item) == ("match" in item):
@@ -351,6 +355,9 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
     notes = list(board.warnings)
     for p in placed:
         notes += [f"{p.pair.base}: {w}" for w in p.pair.warnings]
+        spec = p.result.layout.spec
+        notes += [f"{p.pair.base}: {note}"
+                  for note in stackup_notes(board, spec.pair_layer, list(spec.plane_layers), polyline_of(p.pair.path))]
         sources = p.result.layout.stackup.sources
         kept = [key for key, source in sources if source == "spec"]
         if kept:
