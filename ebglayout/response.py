@@ -143,6 +143,54 @@ def response_json_text(data: dict) -> str:
     return json.dumps(data, indent=2, allow_nan=False) + "\n"
 
 
+@dataclass(frozen=True)
+class ObservedNotch:
+    """The common-mode notch a result file reports, with where it came from."""
+
+    notch_hz: float
+    source: str
+    path: str
+    depth_db: float | None = None
+    reached_threshold: bool = True
+    """False when the curve never got down to the file's threshold (a shallow notch: its frequency is weak
+    evidence)."""
+
+
+def read_observed_notch(path) -> ObservedNotch:
+    """``scc21.notch_hz`` of a result file written by the full-wave command or the fast model.
+
+    One-line errors (EbgError) name the file and what is wrong: unreadable, not JSON, no ``scc21.notch_hz``,
+    not a frequency, or a notch on the edge of the sweep (the true notch may lie outside it).
+    """
+    import json
+    from pathlib import Path
+
+    name = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise EbgError(f"--result = {name}: cannot be read ({getattr(err, 'strerror', None) or err})") from None
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as err:
+        raise EbgError(f"--result = {name}: not JSON (line {err.lineno}, column {err.colno}: {err.msg})") from None
+    scc21 = data.get("scc21") if isinstance(data, dict) else None
+    if not isinstance(scc21, dict) or "notch_hz" not in scc21:
+        raise EbgError(f"--result = {name}: has no key scc21.notch_hz (a result file of the full-wave command or "
+                       "the fast model carries it)")
+    notch = scc21["notch_hz"]
+    if isinstance(notch, bool) or not isinstance(notch, (int, float)) or not math.isfinite(notch) or notch <= 0:
+        raise EbgError(f"--result = {name}: scc21.notch_hz = {notch!r}: must be a frequency in Hz > 0")
+    if scc21.get("notch_at_grid_edge"):
+        raise EbgError(f"--result = {name}: scc21.notch_hz = {notch / 1e9:.6g} GHz lies on the edge of the sweep, "
+                       "so the true notch may lie outside it; widen the sweep and run again")
+    source = data.get("source")
+    depth = scc21.get("depth_db")
+    return ObservedNotch(notch_hz=float(notch), source=source if isinstance(source, str) else "(not stated)",
+                         path=name, depth_db=depth if isinstance(depth, (int, float)) else None,
+                         reached_threshold=scc21.get("stopband_hz") is not None)
+
+
 def format_response(data: dict) -> str:
     """Terminal summary of a result file's content."""
     cc = data["scc21"]

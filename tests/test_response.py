@@ -145,12 +145,12 @@ def test_bad_curves_are_one_line_errors():
     assert db20(np.array([0.0]))[0] == DB_FLOOR
 
 
-def common_mode_notch_network(f0: float = 8e9):
+def common_mode_notch_network(f0: float = 8e9, start_ghz: float = 2.0, stop_ghz: float = 14.0, points: int = 241):
     """A synthetic 4-port in the project's port order that notches only the common mode: mixed-mode blocks
     (differential: a matched 50 ohm line; common: a shunt series-LC resonator) turned into single-ended terms
     by scikit-rf's gmm2se."""
     skrf = pytest.importorskip("skrf", reason="scikit-rf is a dependency of ebglayout (pip install -e .)")
-    freq = skrf.Frequency(2, 14, 241, "GHz")
+    freq = skrf.Frequency(start_ghz, stop_ghz, points, "GHz")
     line = skrf.media.DefinedGammaZ0(freq, z0=100.0, gamma=1j * 2 * np.pi * freq.f * 2 / 299_792_458.0)
     diff = line.line(8, "mm")
     cm_media = skrf.media.DefinedGammaZ0(freq, z0=25.0)
