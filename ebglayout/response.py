@@ -65,8 +65,12 @@ class CurveSummary:
 def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> CurveSummary:
     """Notch, depth and stopband of one curve (|S| in dB on an increasing grid in Hz).
 
-    The notch is the deepest grid point (its frequency is known to the grid spacing).  The stopband is the one
-    run of the curve at or below ``threshold_db`` that holds the notch, its edges interpolated linearly in dB;
+    The notch frequency is the vertex of the parabola through |S|^2 at the deepest grid point and its two
+    neighbours: near a resonance notch |S|^2 grows as the square of the detuning, so the vertex finds the
+    centre between grid points (kept within the neighbours; the grid point itself at the sweep's ends).
+    ``depth_db`` is the deepest sampled value, so it never claims more rejection than was computed.  The
+    stopband is the one run of the curve at or below ``threshold_db`` that holds the deepest grid point, its
+    edges interpolated linearly in dB;
     when a curve has two separate dips, the stopband is the one around the deeper notch, and the other dip is
     not reported (``guaranteed_stopband`` lists every band).  None when the curve never reaches the threshold.
     """
@@ -78,7 +82,7 @@ def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> Curv
         if low <= freq[k] <= high:
             band, clipped = (low, high), (low_clipped, high_clipped)
             break
-    return CurveSummary(notch_hz=float(freq[k]), depth_db=float(curve[k]), stopband_hz=band,
+    return CurveSummary(notch_hz=_vertex(freq, curve, k), depth_db=float(curve[k]), stopband_hz=band,
                         threshold_db=float(threshold_db), notch_at_grid_edge=k in (0, len(freq) - 1),
                         stopband_clipped=clipped)
 
@@ -251,6 +255,21 @@ def _runs(freq: np.ndarray, curve: np.ndarray, threshold_db: float) -> list[tupl
         high = freq[-1] if b == len(curve) - 1 else _crossing(freq, curve, b, b + 1, threshold_db)
         runs.append((float(low), float(high), a == 0, b == len(curve) - 1))
     return runs
+
+
+def _vertex(freq: np.ndarray, curve: np.ndarray, k: int) -> float:
+    """Frequency of the minimum of the parabola through |S|^2 (linear power) at grid points k-1, k, k+1."""
+    if k == 0 or k == len(freq) - 1:
+        return float(freq[k])
+    x = freq[k - 1:k + 2]
+    y = 10.0 ** (curve[k - 1:k + 2] / 10.0)
+    # divided differences: y = y0 + d01 (f - x0) + d012 (f - x0)(f - x1); the vertex is where the slope is 0
+    d01 = (y[1] - y[0]) / (x[1] - x[0])
+    d12 = (y[2] - y[1]) / (x[2] - x[1])
+    d012 = (d12 - d01) / (x[2] - x[0])
+    if not d012 > 0:
+        return float(freq[k])
+    return float(np.clip((x[0] + x[1]) / 2 - d01 / (2 * d012), x[0], x[2]))
 
 
 def _crossing(freq: np.ndarray, curve: np.ndarray, i: int, j: int, threshold_db: float) -> float:

@@ -27,12 +27,13 @@ def write_result(tmp_path, f0: float, name: str = "result.json", **grid) -> tupl
 def test_refine_from_a_result_file_matches_refine_from_the_same_frequency(tmp_path, capsys):
     path, data = write_result(tmp_path, 7.4e9)
     notch = data["scc21"]["notch_hz"]
-    assert notch == pytest.approx(7.4e9, abs=25e6)  # the grid point nearest the resonance
+    assert notch == pytest.approx(7.4e9, abs=1e6)  # 50 MHz grid; the vertex of |S|^2 finds the resonance
     assert main(["refine", SPEC, "--result", str(path), "--json"]) == 0
     from_file = json.loads(capsys.readouterr().out)
     assert main(["refine", SPEC, "--observed", f"{notch / 1e9!r}GHz", "--json"]) == 0
     from_value = json.loads(capsys.readouterr().out)
-    assert from_file["patches"] == from_value["patches"] and from_file["observed_hz"] == notch
+    assert from_file["patches"] == from_value["patches"]
+    assert from_file["observed_hz"] == pytest.approx(notch, abs=500)  # refine reports to 1 kHz
     assert from_file["observed_from"] == {"file": str(path), "source": "model: test resonator network"}
     assert from_file["factor"] == pytest.approx(8e9 / notch, rel=1e-9)
     assert main(["refine", SPEC, "--result", str(path)]) == 0

@@ -61,8 +61,10 @@ def test_single_pole_notch_edges_match_the_closed_form(threshold_db, bw):
         tolerance = edge_tolerance(curve, exact, STEP)
         assert tolerance < 0.3 * STEP  # a bound that nearest-grid-point edges would not meet
         assert found == pytest.approx(exact, abs=tolerance)
-    assert abs(summary.notch_hz - f0) <= STEP / 2
-    assert summary.depth_db == pytest.approx(lorentz_db(np.array([summary.notch_hz]), f0, bw)[0])
+    # the parabola through |S|^2 finds the centre between grid points (the nearest grid point is 17 MHz off)
+    assert abs(summary.notch_hz - f0) <= 0.02 * STEP
+    deepest = GRID[np.argmin(np.abs(GRID - f0))]
+    assert summary.depth_db == pytest.approx(lorentz_db(np.array([deepest]), f0, bw)[0])
     assert summary.threshold_db == threshold_db
     assert not summary.notch_at_grid_edge and summary.stopband_clipped == (False, False)
     # halving the step shrinks the edge error about fourfold (second-order interpolation), checked loosely
@@ -85,7 +87,7 @@ def test_series_resonator_shunt_network_from_scikit_rf():
     step = freq.f[1] - freq.f[0]
     assert summary.stopband_hz[0] == pytest.approx(low, abs=0.05 * step)
     assert summary.stopband_hz[1] == pytest.approx(high, abs=0.05 * step)
-    assert abs(summary.notch_hz - 1 / (2 * math.pi * math.sqrt(L * C))) <= step / 2
+    assert abs(summary.notch_hz - 1 / (2 * math.pi * math.sqrt(L * C))) <= 0.02 * step
     # with a series R the floor of the notch is 2R / (2R + Z0): the sampled depth cannot go below it
     lossy = media.shunt(media.inductor(L) ** media.capacitor(C) ** media.resistor(1.0) ** media.short())
     depth = summarize(freq.f, db20(lossy.s[:, 1, 0])).depth_db
@@ -108,7 +110,7 @@ def test_no_dip_notch_at_the_edge_and_two_dips():
     # two dips, the one at 10 GHz deeper (its own grid point is closer to its centre): the stopband is that one
     two = np.minimum(lorentz_db(GRID, 5.02e9, 0.6e9), lorentz_db(GRID, 10.0e9, 0.8e9))
     s = summarize(GRID, two)
-    assert s.notch_hz == pytest.approx(10e9)
+    assert s.notch_hz == pytest.approx(10e9, abs=0.02 * STEP)
     low = lorentz_edges(10e9, 0.8e9, -10)[0]
     assert s.stopband_hz[0] == pytest.approx(low, abs=edge_tolerance(lambda f: lorentz_db(f, 10e9, 0.8e9),
                                                                      low, STEP))
@@ -188,7 +190,8 @@ def test_response_json_of_a_common_mode_notch_is_stable_and_complete():
     assert "compliance rests on" in loaded["caution"]
     assert len(loaded["freq_hz"]) == len(loaded["scc21_db"]) == 241
     again = summarize(loaded["freq_hz"], loaded["scc21_db"]).as_json()  # a reader of the file gets the summary
-    assert again["notch_hz"] == loaded["scc21"]["notch_hz"] and again["depth_db"] == loaded["scc21"]["depth_db"]
+    assert again["depth_db"] == loaded["scc21"]["depth_db"]
+    assert again["notch_hz"] == pytest.approx(loaded["scc21"]["notch_hz"], abs=1e3)  # 1e-4 dB rounding
     np.testing.assert_allclose(again["stopband_hz"], loaded["scc21"]["stopband_hz"], atol=1e3)  # 1e-4 dB rounding
     with pytest.raises(EbgError, match="extra key 'scc21'"):
         response_json(mm, source="model", target_hz=None, extra={"scc21": 1})

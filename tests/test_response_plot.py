@@ -52,9 +52,10 @@ def test_svg_curves_map_back_to_the_data(result, tmp_path):
             assert ghz[k] == pytest.approx(freq[k], abs=0.01 * px_ghz)
             expected = min(max(result[f"{role}_db"][k], frame.db0), frame.db1)
             assert db[k] == pytest.approx(expected, abs=0.01 * px_db)
-    # the notch is the lowest point of the common-mode curve, and the shaded band spans the stopband
+    # the notch is at the lowest point of the common-mode curve, and the shaded band spans the stopband
     scc = path_points(root, "scc21")
-    assert freq[np.argmax(scc[:, 1])] == pytest.approx(result["scc21"]["notch_hz"] / 1e9)
+    step = freq[1] - freq[0]
+    assert freq[np.argmax(scc[:, 1])] == pytest.approx(result["scc21"]["notch_hz"] / 1e9, abs=step / 2)
     (band,) = [p for p in root.iter(f"{SVG}path") if p.get("class") == "stopband"]
     xs = np.array(band.get("d").lstrip("M").rstrip("Z").split(), dtype=float).reshape(-1, 2)[:, 0]
     low, high = (frame.ghz0 + (x - left) / (right - left) * (frame.ghz1 - frame.ghz0) for x in (xs.min(), xs.max()))
