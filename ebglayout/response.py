@@ -103,6 +103,19 @@ def guaranteed_stopband(freq_hz, curves_db: Sequence, threshold_db: float = DEFA
     return bands or []
 
 
+def corners_json(freq_hz, scc21_db_by_corner: dict, threshold_db: float = DEFAULT_THRESHOLD_DB) -> dict:
+    """Scc21 over tolerance corners (label -> curve in dB, one grid): each corner's summary in the given order,
+    the bands every corner rejects (``guaranteed_stopband``) and the shallowest corner's depth."""
+    if not scc21_db_by_corner:
+        raise EbgError("corners: none given; need at least one labelled Scc21 curve")
+    summaries = {label: summarize(freq_hz, curve, threshold_db) for label, curve in scc21_db_by_corner.items()}
+    bands = guaranteed_stopband(freq_hz, list(scc21_db_by_corner.values()), threshold_db)
+    return {"threshold_db": _db(threshold_db),
+            "corners": [{"label": str(label), **s.as_json()} for label, s in summaries.items()],
+            "guaranteed_stopband_hz": [[_hz(low), _hz(high)] for low, high in bands],
+            "worst_depth_db": _db(max(s.depth_db for s in summaries.values()))}
+
+
 def response_json(mm, *, source: str, target_hz: float | None, threshold_db: float = DEFAULT_THRESHOLD_DB,
                   extra: dict | None = None) -> dict:
     """The result file's content for one 4-port's mixed-mode terms (``sparams.MixedMode``), in a fixed key order.

@@ -19,8 +19,8 @@ import numpy as np
 import pytest
 
 from ebglayout.errors import EbgError
-from ebglayout.response import (DB_FLOOR, CurveSummary, db20, guaranteed_stopband, response_json,
-                                response_json_text, summarize)
+from ebglayout.response import (DB_FLOOR, CurveSummary, corners_json, db20, format_response, guaranteed_stopband,
+                                response_json, response_json_text, summarize)
 
 
 def lorentz_db(freq: np.ndarray, f0: float, bw: float) -> np.ndarray:
@@ -129,6 +129,10 @@ def test_guaranteed_stopband_is_the_hand_computed_intersection_of_shifted_copies
     assert expected[1] - expected[0] > 4 * STEP  # the copies overlap, but far from fully
     for found, exact, k in ((bands[0][0], expected[0], max(shifts)), (bands[0][1], expected[1], min(shifts))):
         assert found == pytest.approx(exact, abs=edge_tolerance(lambda f: lorentz_db(f, f0 * k, bw), exact, STEP))
+    summary = corners_json(GRID, {f"er x{k}": c for k, c in zip(shifts, curves)})
+    assert [c["label"] for c in summary["corners"]] == ["er x0.98", "er x1.0", "er x1.025"]
+    np.testing.assert_allclose(summary["guaranteed_stopband_hz"], [bands[0]], atol=1.0)
+    assert summary["worst_depth_db"] == max(c["depth_db"] for c in summary["corners"])
     # copies shifted apart by more than a stopband share nothing
     assert guaranteed_stopband(GRID, [lorentz_db(GRID, 6e9, 0.5e9), lorentz_db(GRID, 10e9, 0.5e9)], -10.0) == []
 
@@ -193,6 +197,9 @@ def test_response_json_of_a_common_mode_notch_is_stable_and_complete():
     assert again["depth_db"] == loaded["scc21"]["depth_db"]
     assert again["notch_hz"] == pytest.approx(loaded["scc21"]["notch_hz"], abs=1e3)  # 1e-4 dB rounding
     np.testing.assert_allclose(again["stopband_hz"], loaded["scc21"]["stopband_hz"], atol=1e3)  # 1e-4 dB rounding
+    lines = format_response(loaded).splitlines()
+    assert lines[0] == "source: model: test resonator"
+    assert lines[1].startswith("Scc21 notch 8 GHz, depth ") and lines[-1].startswith("caution: ")
     with pytest.raises(EbgError, match="extra key 'scc21'"):
         response_json(mm, source="model", target_hz=None, extra={"scc21": 1})
 
