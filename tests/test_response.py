@@ -17,6 +17,7 @@ import math
 
 import numpy as np
 import pytest
+import skrf
 
 from ebglayout.errors import EbgError
 from ebglayout.response import (DB_FLOOR, CurveSummary, corners_json, db20, format_response, guaranteed_stopband,
@@ -75,7 +76,6 @@ def test_single_pole_notch_edges_match_the_closed_form(threshold_db, bw):
 
 
 def test_series_resonator_shunt_network_from_scikit_rf():
-    skrf = pytest.importorskip("skrf", reason="scikit-rf is a dependency of ebglayout (pip install -e .)")
     L, C, Z0 = 2.0e-9, 0.2e-12, 50.0
     freq = skrf.Frequency(4, 12, 801, "GHz")
     media = skrf.media.DefinedGammaZ0(freq, z0=Z0)
@@ -155,7 +155,6 @@ def common_mode_notch_network(f0: float = 8e9, start_ghz: float = 2.0, stop_ghz:
     """A synthetic 4-port in the project's port order that notches only the common mode: mixed-mode blocks
     (differential: a matched 50 ohm line; common: a shunt series-LC resonator) turned into single-ended terms
     by scikit-rf's gmm2se."""
-    skrf = pytest.importorskip("skrf", reason="scikit-rf is a dependency of ebglayout (pip install -e .)")
     freq = skrf.Frequency(start_ghz, stop_ghz, points, "GHz")
     line = skrf.media.DefinedGammaZ0(freq, z0=100.0, gamma=1j * 2 * np.pi * freq.f * 2 / 299_792_458.0)
     diff = line.line(8, "mm")

@@ -8,14 +8,13 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-PIL = pytest.importorskip("PIL", reason="Pillow is a dependency of ebglayout (pip install -e .)")
-from PIL import Image  # noqa: E402
+from PIL import Image
 
-from ebglayout.export.drawing import COLOURS, SIZE_PX  # noqa: E402
-from ebglayout.export.response_plot import plot_frame, source_label, write_response_plot  # noqa: E402
-from ebglayout.response import response_json  # noqa: E402
-from ebglayout.sparams import mixed_mode  # noqa: E402
-from test_response import common_mode_notch_network  # noqa: E402
+from ebglayout.export.drawing import COLOURS, SIZE_PX
+from ebglayout.export.response_plot import plot_frame, source_label, write_response_plot
+from ebglayout.response import response_json
+from ebglayout.sparams import mixed_mode
+from test_response import common_mode_notch_network
 
 SVG = "{http://www.w3.org/2000/svg}"
 
