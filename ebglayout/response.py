@@ -6,8 +6,10 @@ told), its edges interpolated linearly in dB between the grid points either side
 """
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Sequence
 
 import numpy as np
@@ -36,9 +38,9 @@ def db20(s: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class CurveSummary:
-    """What one curve says: the notch (deepest grid point), its depth and the stopband around it.
+    """What one curve says: the notch, its depth and the stopband around it (see ``summarize``).
 
-    ``depth_db`` is the curve's value at the notch (dB; -25 means 25 dB of rejection).  ``notch_at_grid_edge``
+    ``depth_db`` is the deepest sampled value (dB; -25 means 25 dB of rejection).  ``notch_at_grid_edge``
     is True when the deepest point is the first or last frequency, so the true notch may lie outside the
     sweep; ``stopband_clipped`` says per edge (low, high) whether the stopband runs into the end of the sweep, so
     that edge is the sweep's limit, not the curve's.
@@ -70,9 +72,9 @@ def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> Curv
     centre between grid points (kept within the neighbours; the grid point itself at the sweep's ends).
     ``depth_db`` is the deepest sampled value, so it never claims more rejection than was computed.  The
     stopband is the one run of the curve at or below ``threshold_db`` that holds the deepest grid point, its
-    edges interpolated linearly in dB;
-    when a curve has two separate dips, the stopband is the one around the deeper notch, and the other dip is
-    not reported (``guaranteed_stopband`` lists every band).  None when the curve never reaches the threshold.
+    edges interpolated linearly in dB; when a curve has two separate dips, the stopband is the one around the
+    deeper notch, and the other dip is not reported (``guaranteed_stopband`` lists every band).  None when the
+    curve never reaches the threshold.
     """
     freq, curve = _curve(freq_hz, s_db, "s_db")
     _check_threshold(threshold_db)
@@ -121,7 +123,7 @@ def response_json(mm, *, source: str, target_hz: float | None, threshold_db: flo
     """The result file's content for one 4-port's mixed-mode terms (``sparams.MixedMode``), in a fixed key order.
 
     Keys: ``source``, ``port_order``, ``target_hz``, ``threshold_db``, ``scc21`` (the ``CurveSummary``),
-    ``sdd21_at_notch_db``, ``scc21_at_target_db``, ``sdd21_at_target_db`` (linear in dB between grid points;
+    ``sdd21_at_notch_db`` (at Scc21's deepest grid point), ``scc21_at_target_db``, ``sdd21_at_target_db`` (linear in dB between grid points;
     None without a target or outside the sweep), ``target_in_stopband``, ``sdd21_worst_db`` and
     ``sdc21_worst_db`` (the highest mode conversion over the sweep), ``caution``, then ``extra``'s keys in their
     order, then the curves ``freq_hz``, ``scc21_db``, ``sdd21_db``.  Hz rounded to 1 Hz, dB to 0.0001 dB.
@@ -155,8 +157,6 @@ def response_json(mm, *, source: str, target_hz: float | None, threshold_db: flo
 
 def response_json_text(data: dict) -> str:
     """The result file's bytes: the dict's own key order, two-space indent, a final newline."""
-    import json
-
     return json.dumps(data, indent=2, allow_nan=False) + "\n"
 
 
@@ -179,9 +179,6 @@ def read_observed_notch(path) -> ObservedNotch:
     One-line errors (EbgError) name the file and what is wrong: unreadable, not JSON, no ``scc21.notch_hz``,
     not a frequency, or a notch on the edge of the sweep (the true notch may lie outside it).
     """
-    import json
-    from pathlib import Path
-
     name = str(path)
     try:
         text = Path(path).read_text(encoding="utf-8")
