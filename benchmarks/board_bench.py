@@ -23,6 +23,7 @@ import itertools
 import json
 import os
 import platform
+import re
 import resource
 import statistics
 import subprocess
@@ -387,8 +388,16 @@ def machine() -> str:
 
 
 def write_plan(folder: Path) -> Path:
+    """A plan placing the sample's cut under every pair, with the stack-up left to the board's.
+
+    The sample's [stackup] describes the sample board; here the cavity under In1.Cu runs to the GND plane on
+    In4.Cu, and `place` refuses a spec whose stack-up contradicts the board's.
+    """
+    spec = folder / "lane.toml"
+    spec.write_text(re.sub(r"\[stackup\]\n(?:[^\[\n][^\n]*\n|\n)*", "", SPEC.read_text(encoding="utf-8")),
+                    encoding="utf-8")
     plan = folder / "plan.toml"
-    plan.write_text(f'[[filter]]\nspec = "{SPEC.as_posix()}"\nmatch = "HX2_L*"\n', encoding="utf-8")
+    plan.write_text(f'[[filter]]\nspec = "{spec.as_posix()}"\nmatch = "HX2_L*"\n', encoding="utf-8")
     return plan
 
 
