@@ -199,11 +199,11 @@ def test_stripline_planes_follow_the_board_order_and_references():
     """With a board, its copper order decides the sides and its planes next to the pair must be the cut planes."""
     layout = make(pair={"layer": "In2.Cu"}, plane={"layers": ["In1.Cu", "In3.Cu"]})
     order = ("F.Cu", "In1.Cu", "In2.Cu", "In3.Cu", "In4.Cu", "B.Cu")
-    good = CheckContext(copper_layers=order, references={"In2.Cu": ("In1.Cu", "In3.Cu")})
+    good = CheckContext(copper_layers=order, pair_planes=("In1.Cu", "In3.Cu"))
     assert findings(layout, "stripline-cut", good) == []
-    other = CheckContext(copper_layers=order, references={"In2.Cu": ("In1.Cu", "In4.Cu")})
+    other = CheckContext(copper_layers=order, pair_planes=("In1.Cu", "In4.Cu"))
     (error,) = findings(layout, "stripline-cut", other)
-    assert "the planes next to In2.Cu on the board are In1.Cu and In4.Cu" in error.message
+    assert "the planes next to In2.Cu under the pair are In1.Cu and In4.Cu" in error.message
     flipped = ("F.Cu", "In2.Cu", "In1.Cu", "In3.Cu", "B.Cu")  # a board order in which both lie below the pair
     (error,) = findings(layout, "stripline-cut", CheckContext(copper_layers=flipped))
     assert "both lie below In2.Cu" in error.message

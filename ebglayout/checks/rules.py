@@ -112,6 +112,8 @@ class CheckContext:
     """Signal layer -> plane layers it is referenced to; None = infer from layer names."""
     copper_layers: tuple[str, ...] | None = None
     """The board's copper layers top to bottom; None = KiCad's order by name (F.Cu, In1.Cu..In30.Cu, B.Cu)."""
+    pair_planes: tuple[str, ...] | None = None
+    """The board's nearest planes (any net) above and below the pair, under the pair; None = no board."""
     estimate: object = None
     """The notch estimate (ebglayout.estimate), when one was made."""
 
@@ -370,10 +372,9 @@ def stripline_cut(layout: Layout, ctx: CheckContext) -> RuleResult:
     if len(sides) == 1 and not math.isnan(next(iter(sides))):
         r.add("error", f"{names} both lie {'below' if sides == {1.0} else 'above'} {spec.pair_layer}: a stripline "
               "cut belongs in the pair's two reference planes, one above and one below", centre)
-    references = (ctx.references or {}).get(spec.pair_layer)
-    if references is not None and set(references) != {cut.layer for cut in layout.cuts}:
-        r.add("error", f"the planes next to {spec.pair_layer} on the board are {' and '.join(references) or 'none'}, "
-              f"not {names}", centre)
+    if ctx.pair_planes is not None and set(ctx.pair_planes) != {cut.layer for cut in layout.cuts}:
+        r.add("error", f"the planes next to {spec.pair_layer} under the pair are "
+              f"{' and '.join(ctx.pair_planes) or 'none'}, not {names}", centre)
     first = layout.cuts[0]
     for other in layout.cuts[1:]:
         r.checked += 1

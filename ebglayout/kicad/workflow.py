@@ -196,8 +196,10 @@ def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
         outline = min(outline.geoms, key=lambda g: g.distance(centre))
     if references is None:
         references = reference_planes(board)
+    pair_planes = tuple(nearest_planes(board, pair.layer, polyline_of(pair.path)))
     return CheckContext(tracks=tracks, vias=vias, plane_outline=outline, sandwiched=len(found) == 2,
-                        references=references, copper_layers=board.copper_layers, estimate=estimate)
+                        references=references, copper_layers=board.copper_layers, pair_planes=pair_planes,
+                        estimate=estimate)
 
 
 def board_skeleton(board: Board, nets: bool = False, footprints: bool = False) -> str:
