@@ -44,7 +44,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, default=Path("ebglayout-demo"), help="output folder (default ./ebglayout-demo)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png, .kicad_mod, .kicad_dru and report.json")
+    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png, .kicad_mod, .kicad_dru and .report.json")
     p.add_argument("spec", type=Path)
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
@@ -89,7 +89,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--spec", type=Path, help="the filter spec (cut, rules; pair geometry comes from the board)")
     p.add_argument("--plan", type=Path, help="TOML plan with [[filter]] tables (spec + pair or match) for many pairs")
     p.add_argument("--out", type=Path, required=True, help="the new .kicad_pcb (never the input)")
-    p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and report.json here")
+    p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and <name>.report.json here")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("kicad-package", "build the KiCad Plugin and Content Manager zip of the action plugin")
@@ -123,7 +123,8 @@ def main(argv: list[str] | None = None) -> int:
     except OSError as err:
         if getattr(args, "debug", False):
             raise
-        print(f"ebglayout: error: {err.filename or ''}: {err.strerror or err}", file=sys.stderr)
+        print(f"ebglayout: error: {err.filename}: {err.strerror or err}" if err.filename else
+              f"ebglayout: error: {err.strerror or err}", file=sys.stderr)
         return 2
     except Exception as err:  # a bug, not bad input: one line, the traceback only with --debug
         if getattr(args, "debug", False):
@@ -134,59 +135,69 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _demo(args) -> int:
-    from .pipeline import build_to_folder, output_names
-    from .outputs import StagedOutputs
     from .bundled import sample_specs
+    from .outputs import StagedOutputs
+    from .pipeline import make_filter, output_names, write_filter
     from .spec import load_spec
 
-    specs = [load_spec(p) for p in sample_specs()]
-    staged = StagedOutputs(args.out, force=args.force)
-    staged.require_free([n for s in specs for n in output_names(s.name) if n != "report.json"])
+    paths = sample_specs()
+    specs = [load_spec(p) for p in paths]
     worst = 0
-    for spec in specs:
-        result = build_to_folder(spec, args.out / spec.name, force=args.force)
+    with StagedOutputs(args.out, force=args.force, inputs=paths) as staged:
+        staged.require_free([n for s in specs for n in output_names(s.name, s.name)])
+        results = [make_filter(spec) for spec in specs]
+        for result in results:
+            write_filter(result, staged, folder=result.name)
+    for result in results:
         c = result.checks
         est = result.estimate.to_json() if result.estimate is not None else None
         band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
-        print(f"{spec.name:<22} {spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
+        print(f"{result.name:<22} {result.layout.spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
               f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch band {band}  "
-              f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / spec.name}")
+              f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / result.name}")
         worst = max(worst, 1 if c.errors else 0)
     print("Estimates are for placement and review; confirm with a field solve and measurement.")
     return worst
 
 
 def _build(args) -> int:
-    from .pipeline import build_to_folder
+    from .pipeline import build_to_folder, output_names
     from .spec import load_spec
 
-    result = build_to_folder(load_spec(args.spec), args.out, force=args.force, jobs=_jobs(args.jobs))
+    spec = load_spec(args.spec)
+    result = build_to_folder(spec, args.out, force=args.force, jobs=_jobs(args.jobs), inputs=(args.spec,))
     print(result.checks.format_table())
-    print(f"wrote {', '.join(sorted(p.name for p in args.out.iterdir() if p.name.startswith(result.name)))} "
-          f"and report.json to {args.out}")
+    print(f"wrote {', '.join(output_names(spec.name))} to {args.out}")
     return 1 if result.checks.errors else 0
 
 
 def _check(args) -> int:
+    from contextlib import nullcontext
+
+    from .outputs import StagedOutputs
+
     if (args.spec is None) == (args.board is None):
         raise EbgError("check: give either a SPEC file or --board BOARD")
-    if args.board is not None:
-        from .kicad.workflow import check_board
+    source = args.board if args.board is not None else args.spec
+    junit = StagedOutputs(args.junit.parent, force=True, inputs=(source,), option="--junit") if args.junit else None
+    with junit if junit else nullcontext():
+        if junit:
+            junit.require_free([args.junit.name])
+        if args.board is not None:
+            from .kicad.workflow import check_board
 
-        reports = check_board(args.board, jobs=_jobs(args.jobs))
-        if not reports:
-            print(f"{args.board}: no ebglayout filters on this board")
-    else:
-        from .pipeline import make_filter
-        from .spec import load_spec
+            reports = check_board(args.board, jobs=_jobs(args.jobs))
+            if not reports:
+                print(f"{args.board}: no ebglayout filters on this board")
+        else:
+            from .pipeline import make_filter
+            from .spec import load_spec
 
-        reports = [make_filter(load_spec(args.spec)).checks]
-    if args.junit:
-        from .checks.junit import junit_xml
-        from .outputs import StagedOutputs
+            reports = [make_filter(load_spec(args.spec)).checks]
+        if junit:
+            from .checks.junit import junit_xml
 
-        with StagedOutputs(args.junit.parent if str(args.junit.parent) else Path("."), force=True) as staged:
-            staged.write_text(args.junit.name, junit_xml(reports, strict=args.strict))
+            junit.write_text(args.junit.name, junit_xml(reports, strict=args.strict))
     if args.json:
         data = [r.to_json() for r in reports]
         print(json.dumps(data[0] if args.spec is not None else data, indent=2))
@@ -240,7 +251,8 @@ def _place(args) -> int:
         requests = [Request(load_spec_dict(args.spec), str(args.spec), pair=tuple(args.pair))]
     else:
         raise EbgError("place: needs --pair NET_P NET_N with --spec SPEC, or --plan PLAN")
-    placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"))
+    placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"),
+                      inputs=[args.plan] if args.plan is not None else [])
     for p in placement.filters:
         print(p.result.checks.format_table())
     for risk in placement.risks:
@@ -283,13 +295,7 @@ def _size(args) -> int:
     from .estimate.sizing import format_sizing, size_for_target
     from .units import parse_frequency, parse_length
 
-    bridge = None
-    if args.bridge:
-        parts = args.bridge.split(",")
-        if len(parts) not in (2, 3):
-            raise EbgError(f"--bridge = {args.bridge}: must be WIDTH,LENGTH[,PER_SIDE] in mm")
-        bridge = (parse_length(parts[0], "--bridge width"), parse_length(parts[1], "--bridge length"),
-                  int(parts[2]) if len(parts) == 3 and parts[2].strip().isdigit() else 1)
+    bridge = _bridge(args.bridge) if args.bridge else None
     if not 1.0 <= args.er <= 30.0:
         raise EbgError(f"--er = {args.er:g}: must be between 1 and 30")
     if args.style == "bridged" and bridge is None:
@@ -301,6 +307,19 @@ def _size(args) -> int:
                              h=sizes["h"], bridge=bridge, slot=sizes["slot"])
     print(json.dumps(result, indent=2) if args.json else format_sizing(result))
     return 0
+
+
+def _bridge(text: str) -> tuple[float, float, int]:
+    """--bridge WIDTH,LENGTH[,PER_SIDE]: lengths with optional units, PER_SIDE a whole number >= 1 (default 1)."""
+    from .units import parse_length
+
+    parts = text.split(",")
+    if len(parts) not in (2, 3):
+        raise EbgError(f"--bridge = {text}: must be WIDTH,LENGTH[,PER_SIDE] in mm")
+    per_side = parts[2].strip() if len(parts) == 3 else "1"
+    if not per_side.isdigit() or int(per_side) < 1:
+        raise EbgError(f"--bridge = {text}: PER_SIDE = {per_side or '(empty)'} must be a whole number >= 1")
+    return parse_length(parts[0], "--bridge width"), parse_length(parts[1], "--bridge length"), int(per_side)
 
 
 def _refine(args) -> int:

@@ -31,8 +31,8 @@ def test_demo_writes_every_output_for_every_sample(tmp_path, capsys):
         name = load_spec(path).name
         folder = out / name
         assert sorted(p.name for p in folder.iterdir()) == sorted(
-            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru")] + ["report.json"])
-        report = json.loads((folder / "report.json").read_text())
+            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru", "report.json")])
+        report = json.loads((folder / f"{name}.report.json").read_text())
         assert set(report) == REPORT_KEYS
         assert report["crossings"]["P"] == report["crossings"]["N"] > 0
         assert all(set(f) == FINDING_KEYS for f in report["findings"])

@@ -28,7 +28,7 @@ from ..errors import BoardError, SpecError
 from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
-from ..pipeline import FilterResult, can_fork, write_filter
+from ..pipeline import FilterResult, can_fork, output_names, write_filter
 from ..spec import Arc, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
@@ -343,30 +343,32 @@ def _pairs_for(board: Board, requests: list[Request]) -> list[BoardPair]:
 
 
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
-          force: bool = False, progress=None) -> Placement:
-    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs."""
+          force: bool = False, progress=None, inputs=()) -> Placement:
+    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs.
+
+    Nothing is written over the board, its rules, the specs or any other of ``inputs`` (a plan file)."""
+    from contextlib import nullcontext
+
     board_path, out_path = Path(board_path), Path(out_path)
     if out_path.suffix != ".kicad_pcb":
         raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
-    staged = StagedOutputs(out_path.parent if str(out_path.parent) else Path("."), force=force,
-                           protect=(board_path, board_path.with_suffix(".kicad_dru")))
-    rules_name = out_path.with_suffix(".kicad_dru").name
-    staged.require_free([out_path.name, rules_name])
-    board = read_board(board_path)
     source_rules = board_path.with_suffix(".kicad_dru")
-    existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
-    placement = plan_placement(board, requests, existing, progress)
-    if artifacts is not None:
-        art = StagedOutputs(artifacts, force=force)
-        art.require_free([f"{p.result.name}/report.json" for p in placement.filters])
-    with staged:
-        with open(staged.path(out_path.name), "w", encoding="utf-8", newline="") as handle:
+    inputs = (board_path, source_rules, *inputs, *(Path(r.source) for r in requests))
+    staged = StagedOutputs(out_path.parent, force=force, inputs=inputs)
+    art = StagedOutputs(artifacts, force=force, inputs=inputs, option="--artifacts") if artifacts else None
+    rules_name = out_path.with_suffix(".kicad_dru").name
+    with staged, art if art else nullcontext():
+        staged.require_free([out_path.name, rules_name])
+        board = read_board(board_path)
+        existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
+        placement = plan_placement(board, requests, existing, progress)
+        if art:
+            art.require_free([n for p in placement.filters for n in output_names(p.result.name, p.result.name)])
+        with staged.writing(out_path.name) as path, open(path, "w", encoding="utf-8", newline="") as handle:
             handle.write(placement.board_text)
         staged.write_text(rules_name, placement.rules_text)
-        if artifacts is not None:
-            for p in placement.filters:
-                with StagedOutputs(Path(artifacts) / p.result.name, force=force) as folder:
-                    write_filter(p.result, folder)
+        for p in placement.filters if art else ():
+            write_filter(p.result, art, folder=p.result.name)
     return placement
 
 
