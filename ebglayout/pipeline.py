@@ -61,7 +61,7 @@ def write_filter(result: FilterResult, staged: StagedOutputs, folder: str = "", 
     """
     from .export.dxf import write_dxf
     from .export.gds import write_gds
-    from .export.preview import write_preview
+    from .export.preview import build_drawing, drawing_title, write_png, write_svg
     from .kicad.footprint import footprint_text
     from .kicad.rules import rules_text
 
@@ -83,8 +83,11 @@ def write_filter(result: FilterResult, staged: StagedOutputs, folder: str = "", 
     try:
         with staged.writing(names[".gds"]) as path:
             write_gds(result.layout, path)
-        with staged.writing(names[".svg"]) as svg, staged.writing(names[".png"]) as png:
-            write_preview(result.layout, svg, png, findings=findings, notch=notch)
+        drawing = build_drawing(result.layout, findings, notch)
+        with staged.writing(names[".svg"]) as path:
+            write_svg(drawing, drawing_title(result.layout), path)
+        with staged.writing(names[".png"]) as path:
+            write_png(drawing, path)
         staged.write_text(names[".kicad_mod"], footprint_text(result.layout))
         staged.write_text(names[".kicad_dru"], rules_text(result.layout))
         staged.write_text(names[".report.json"],

@@ -130,7 +130,7 @@ def test_failure_inside_a_writer_leaves_no_partial_file(tmp_path, monkeypatch, c
     def broken(*args, **kwargs):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(preview, "write_preview", broken)
+    monkeypatch.setattr(preview, "write_png", broken)
     out = tmp_path / "out"
     assert main(["build", str(SAMPLE_SPECS[0]), "--out", str(out)]) == 2
     assert "No space left on device" in capsys.readouterr().err
