@@ -8,6 +8,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import EbgError
+from .units import LENGTH_UNITS_MM
 
 EXAMPLES = {
     "demo": "ebglayout demo --out ./ebglayout-demo",
@@ -67,10 +68,12 @@ def _parser() -> argparse.ArgumentParser:
     p = command("size", "first-pass patch size for a target notch")
     p.add_argument("--target", required=True, help='frequency ("8GHz") or NRZ data rate ("16Gbps")')
     p.add_argument("--er", type=float, required=True, help="dielectric constant between cut plane and next plane")
-    p.add_argument("--h", default="0.1", help="that dielectric's thickness (default 0.1 mm)")
+    p.add_argument("--h", default="0.1mm", help="that dielectric's thickness (default 0.1 mm)")
     p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
-    p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE] in mm")
-    p.add_argument("--slot", default="0.15", help="slot width (default 0.15 mm)")
+    p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE]")
+    p.add_argument("--slot", default="0.15mm", help="slot width (default 0.15 mm)")
+    p.add_argument("--units", default="mm", choices=sorted(LENGTH_UNITS_MM),
+                   help="unit of bare lengths given here and of every length printed (default mm)")
     p.add_argument("--json", action="store_true", help="print JSON")
 
     p = command("refine", "correct a spec's dimensions from the notch a simulation observed")
@@ -295,31 +298,32 @@ def _size(args) -> int:
     from .estimate.sizing import format_sizing, size_for_target
     from .units import parse_frequency, parse_length
 
-    bridge = _bridge(args.bridge) if args.bridge else None
+    bridge = _bridge(args.bridge, args.units) if args.bridge else None
     if not 1.0 <= args.er <= 30.0:
         raise EbgError(f"--er = {args.er:g}: must be between 1 and 30")
     if args.style == "bridged" and bridge is None:
         raise EbgError("--bridge = (missing): the bridged style needs --bridge WIDTH,LENGTH[,PER_SIDE]")
-    sizes = {k: parse_length(v, f"--{k}") for k, v in (("h", args.h), ("slot", args.slot))}
+    sizes = {k: parse_length(v, f"--{k}", args.units) for k, v in (("h", args.h), ("slot", args.slot))}
     if min(sizes.values()) <= 0:
         raise EbgError(f"--h = {args.h}, --slot = {args.slot}: both must be > 0")
     result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style,
                              h=sizes["h"], bridge=bridge, slot=sizes["slot"])
-    print(json.dumps(result, indent=2) if args.json else format_sizing(result))
+    print(json.dumps(result, indent=2) if args.json else format_sizing(result, args.units))
     return 0
 
 
-def _bridge(text: str) -> tuple[float, float, int]:
-    """--bridge WIDTH,LENGTH[,PER_SIDE]: lengths with optional units, PER_SIDE a whole number >= 1 (default 1)."""
+def _bridge(text: str, units: str) -> tuple[float, float, int]:
+    """--bridge WIDTH,LENGTH[,PER_SIDE]: lengths (bare in ``units``), PER_SIDE a whole number >= 1 (default 1)."""
     from .units import parse_length
 
     parts = text.split(",")
     if len(parts) not in (2, 3):
-        raise EbgError(f"--bridge = {text}: must be WIDTH,LENGTH[,PER_SIDE] in mm")
+        raise EbgError(f"--bridge = {text}: must be WIDTH,LENGTH[,PER_SIDE], lengths in {units} unless they say")
     per_side = parts[2].strip() if len(parts) == 3 else "1"
     if not per_side.isdigit() or int(per_side) < 1:
         raise EbgError(f"--bridge = {text}: PER_SIDE = {per_side or '(empty)'} must be a whole number >= 1")
-    return parse_length(parts[0], "--bridge width"), parse_length(parts[1], "--bridge length"), int(per_side)
+    return (parse_length(parts[0], "--bridge width", units), parse_length(parts[1], "--bridge length", units),
+            int(per_side))
 
 
 def _refine(args) -> int:
@@ -327,8 +331,9 @@ def _refine(args) -> int:
     from .spec import load_spec
     from .units import parse_frequency
 
-    result = refine(load_spec(args.spec), parse_frequency(args.observed, "--observed"))
-    print(json.dumps(result, indent=2) if args.json else format_refine(result))
+    spec = load_spec(args.spec)
+    result = refine(spec, parse_frequency(args.observed, "--observed"))
+    print(json.dumps(result, indent=2) if args.json else format_refine(result, spec.units))
     return 0
 
 
