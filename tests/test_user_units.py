@@ -110,3 +110,23 @@ def test_report_json_says_its_numbers_are_mm(mil_spec, tmp_path, capsys):
     report = json.loads((tmp_path / "out" / "hx2_l0_tx_mil.report.json").read_text())
     assert report["units"] == {"length": "mm", "area": "mm2", "spec": "mil", "frequency": "Hz"}
     assert report["min_slot_width"] == pytest.approx(6 * MIL_MM, abs=1e-6)
+
+
+def test_dxf_dimensions_and_notes_are_in_mil(mil_spec, tmp_path):
+    """The drawing stays in mm ($INSUNITS = 4); ezdxf renders each DIMENSION's text from its measurement times
+    DIMLFAC with DIMPOST, so the text a CAD user reads is the measured length in mil."""
+    import ezdxf
+
+    from ebglayout.export.dxf import write_dxf
+    from ebglayout.layout import build_layout
+
+    doc = ezdxf.readfile(write_dxf(build_layout(load_spec(mil_spec)), tmp_path / "m.dxf"))
+    assert doc.header["$INSUNITS"] == 4
+    dims = doc.modelspace().query("DIMENSION")
+    assert len(dims) == 4
+    for dim in dims:
+        texts = [e.plain_text() for e in dim.get_geometry_block() if e.dxftype() in ("TEXT", "MTEXT")]
+        value, unit = texts[0].split()
+        assert unit == "mil" and float(value) == pytest.approx(dim.get_measurement() / MIL_MM, abs=1e-4)
+    notes = " ".join(m.plain_text() for m in doc.modelspace().query("MTEXT"))
+    assert "Slot 6 mil; web 12 mil" in notes and "h 4 mil" in notes and " mm," not in notes.replace("mm;", "")
