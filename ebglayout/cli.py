@@ -289,8 +289,9 @@ def _estimate(args) -> int:
     from .layout import build_layout
     from .spec import load_spec
 
-    estimate = estimate_layout(build_layout(load_spec(args.spec)))
-    print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate))
+    spec = load_spec(args.spec)
+    estimate = estimate_layout(build_layout(spec))
+    print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate, spec.units))
     return 0
 
 

@@ -25,6 +25,8 @@ class FilterResult:
     layout: Layout
     checks: CheckReport
     estimate: object
+    context: object = None
+    """The CheckContext the checks ran with (a board's other copper), when one was given."""
 
     @property
     def name(self) -> str:
@@ -38,7 +40,7 @@ def make_filter(spec: FilterSpec, context=None) -> FilterResult:
     layout = build_layout(spec)
     estimate = estimate_layout(layout)
     checks = run_checks(layout, context, estimate=estimate)
-    return FilterResult(layout, checks, estimate)
+    return FilterResult(layout, checks, estimate, context)
 
 
 def output_names(name: str, folder: str = "") -> list[str]:
@@ -83,7 +85,9 @@ def write_filter(result: FilterResult, staged: StagedOutputs, folder: str = "", 
     try:
         with staged.writing(names[".gds"]) as path:
             write_gds(result.layout, path)
-        drawing = build_drawing(result.layout, findings, notch)
+        copper = result.context
+        drawing = build_drawing(result.layout, findings, notch, tracks=copper.tracks if copper else None,
+                                vias=copper.vias if copper else None)
         with staged.writing(names[".svg"]) as path:
             write_svg(drawing, drawing_title(result.layout), path)
         with staged.writing(names[".png"]) as path:
