@@ -142,6 +142,7 @@ def _demo(args) -> int:
     from .outputs import StagedOutputs
     from .pipeline import make_filter, output_names, write_filter
     from .spec import load_spec
+    from .units import format_length
 
     paths = sample_specs()
     specs = [load_spec(p) for p in paths]
@@ -156,7 +157,8 @@ def _demo(args) -> int:
         est = result.estimate.to_json() if result.estimate is not None else None
         band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
         print(f"{result.name:<22} {result.layout.spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
-              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch band {band}  "
+              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {format_length(c.min_slot_width, c.units)}  "
+              f"notch band {band}  "
               f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / result.name}")
         worst = max(worst, 1 if c.errors else 0)
     print("Estimates are for placement and review; confirm with a field solve and measurement.")
