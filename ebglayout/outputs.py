@@ -145,7 +145,9 @@ class StagedOutputs:
         for target in targets:
             self._make_folder(target.parent)
             lock = _Lock(target.with_name(f".{target.name}{LOCK_SUFFIX}"))
-            if not lock.acquire():
+            with self._naming(target):
+                got = lock.acquire()
+            if not got:
                 raise OutputBusy(f"{self.option} {target}: another ebglayout run (pid {lock.holder()}) is writing "
                                  "it; wait for that run to finish")
             self.locks[target] = lock
