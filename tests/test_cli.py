@@ -16,8 +16,8 @@ from ebglayout.spec import load_spec
 
 from conftest import ROOT, SAMPLE_SPECS
 
-REPORT_KEYS = {"filter", "units", "spec", "cells", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width",
-               "gds_layers", "route", "checks", "findings", "estimate", "caution"}
+REPORT_KEYS = {"filter", "units", "spec", "stackup", "cells", "crossings", "crossings_by_layer", "min_slot_width",
+               "min_copper_width", "gds_layers", "route", "checks", "findings", "estimate", "caution"}
 CHECK_KEYS = {"filter", "units", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width", "summary", "rules",
               "findings"}
 FINDING_KEYS = {"rule", "severity", "message", "at", "value", "limit", "layer"}
