@@ -133,3 +133,16 @@ def test_preview_speaks_the_spec_units():
     assert "x (mil)" in texts and "y (mil)" in texts
     assert "181 mil" in texts and "94.5 mil" in texts and "slot 6 mil" in texts
     assert not [t for t in texts if re.search(r"\d mm\b", t)]
+
+
+def test_net_labels_stay_inside_the_panel_and_apart():
+    """The route ends at the panel's right edge, where the N label used to run into the legend."""
+    _, items = crowded()
+    view = board_fill(items, "trace-P")[0].view
+    labels = [t for t in items if isinstance(t, Text) and t.text.startswith(("P: ", "N: "))]
+    assert len(labels) == 2
+    boxes = [measured_box(t) for t in labels]
+    for region in boxes:
+        x0, y0, x1, y1 = region.bounds
+        assert view.left <= x0 and x1 <= view.right and view.top <= y0 and y1 <= view.bottom
+    assert boxes[0].intersection(boxes[1]).area == 0

@@ -291,7 +291,8 @@ def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View
         hatch = COLOURS["hatch"] if trace.polarity == "N" else None
         items.append(_fill(trace.polygon.intersection(window), COLOURS[trace.polarity], view,
                            f"trace-{trace.polarity}", alpha=TRACE_ALPHA, hatch=hatch))
-    net_labels = [t for t in (_trace_label(trace, window, cut.outline, view) for trace in layout.traces) if t]
+    net_labels = _inside(view, [t for t in (_trace_label(trace, window, cut.outline, view)
+                                            for trace in layout.traces) if t])
     items += net_labels
     here = [c for c in layout.crossings if c.layer == cut.layer]
     full = tuple(view.px(*c.point) for c in here if c.kind == "full")
@@ -320,6 +321,28 @@ def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View
                     _ticks(view.y0 / scale, view.y1 / scale, (view.bottom - view.top) / 80)],
                    f"x ({units})", f"y ({units})")
     return [i for i in items if i is not None], left_out
+
+
+def _inside(view: View, labels: list) -> list:
+    """Net labels kept inside the panel: one that sticks out on a side is turned to end (or start) where the
+    label before it ends (or starts), away from that side, and moved down past any label it would then overlap."""
+    from dataclasses import replace
+
+    placed: list = []
+    for text in labels:
+        x0, _, x1, _ = text.box()
+        if x1 > view.right - 4:
+            end = min([view.right - 4] + [o.box()[2] for o in placed])
+            text = replace(text, anchor="end", x=end - 2)
+        elif x0 < view.left + 4:
+            start = max([view.left + 4] + [o.box()[0] for o in placed])
+            text = replace(text, anchor="start", x=start + 2)
+        for other in placed:
+            a, b = text.box(), other.box()
+            if a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]:
+                text = replace(text, y=text.y + (b[3] - a[1]) + 2)
+        placed.append(text)
+    return placed
 
 
 def _other_copper(tracks: Sequence, vias: Sequence, window) -> dict:

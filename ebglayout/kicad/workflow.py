@@ -287,12 +287,13 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
                         "tracks, so draw the folded route on the board first (or use `build` to get the route)")
     layout = with_copper(layout, traces=board_traces(board, layout, pair))
     estimate = estimate_layout(layout)
-    checks = run_checks(layout, board_context(board, layout, pair, references=references), estimate=estimate)
+    context = board_context(board, layout, pair, references=references)
+    checks = run_checks(layout, context, estimate=estimate)
     texts = texts if texts is not None else BoardTexts(board)
     item = board_footprint_text(layout, texts.version, reference=reference, plane_net=texts.plane_net(spec.plane_net),
                                 zone_priority=zone_priority_for(texts.text(), layout, spec.plane_net, board.name),
                                 design=design)
-    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate), design, item)
+    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate, context), design, item)
 
 
 def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
