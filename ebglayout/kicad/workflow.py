@@ -30,6 +30,7 @@ from ..outputs import StagedOutputs
 from ..path import piece_points
 from ..pipeline import FilterResult, can_fork, output_names, write_filter
 from ..spec import Arc, spec_from_dict
+from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
@@ -331,7 +332,7 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
         if board.stackup is None:
             spec = p.result.layout.spec
             notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
-                         f"stackup.h = {spec.h:g} mm")
+                         f"stackup.h = {format_length(spec.h, spec.units, digits=6)}")
     return Placement(placed, new_text, rules, risks, notes)
 
 
