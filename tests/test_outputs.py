@@ -37,7 +37,9 @@ def slow(*args, **kwargs):
     if func == "write_gds":
         pathlib.Path(args[1]).write_bytes(b"0" * 1_000_000)
     pathlib.Path(ready).write_text(str(os.getpid()))
-    time.sleep(seconds)
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline and not pathlib.Path(ready + ".go").exists():
+        time.sleep(0.02)
     return original(*args, **kwargs)
 setattr(module, func, slow)
 if func == "write_dxf":
@@ -46,12 +48,14 @@ if func == "write_dxf":
 from ebglayout.cli import main
 sys.exit(main(sys.argv[4:]))
 """
-"""Runs the CLI with one function slowed down: it writes its pid to ``ready`` and sleeps, so a test can act
-while the run holds its outputs (write_gds also writes 1 MB first; write_dxf is slowed only in a forked child)."""
+"""Runs the CLI with one function held: it writes its pid to ``ready`` and waits until ``ready.go`` exists (at most
+``seconds``), so a test can act while the run holds its outputs, however slow the machine (write_gds also writes
+1 MB first; write_dxf is held only in a forked child)."""
 
 
-def slowed(tmp_path: Path, target: str, argv: list[str], seconds: float = 4.0) -> tuple[subprocess.Popen, int]:
-    """Start the CLI in a process with ``target`` slowed; return it and the pid that reached the slow call."""
+def slowed(tmp_path: Path, target: str, argv: list[str], seconds: float = 60.0) -> tuple[subprocess.Popen, int]:
+    """Start the CLI in a process with ``target`` held; return it and the pid that reached the held call.
+    ``release(proc)`` lets it go on."""
     ready = tmp_path / f"ready-{time.monotonic_ns()}"
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     proc = subprocess.Popen([sys.executable, "-c", RUNNER, str(ready), str(seconds), target, *argv], env=env,
@@ -61,7 +65,14 @@ def slowed(tmp_path: Path, target: str, argv: list[str], seconds: float = 4.0) -
         assert proc.poll() is None, proc.communicate()
         assert time.monotonic() < deadline, "the slowed run never reached its slow call"
         time.sleep(0.02)
+    proc.ready = ready
     return proc, int(ready.read_text())
+
+
+def release(proc: subprocess.Popen) -> int:
+    """Let a held run go on; its exit code."""
+    Path(f"{proc.ready}.go").touch()
+    return proc.wait(60)
 
 
 def cli(*argv: str) -> subprocess.CompletedProcess:
@@ -176,9 +187,9 @@ def test_of_two_builds_into_one_folder_one_wins_and_the_other_says_why(tmp_path)
     first, _ = slowed(tmp_path, "ebglayout.pipeline.make_filter", ["build", str(STRAIGHT), "--out", str(out),
                                                                      "--force", "--jobs", "1"])
     second = cli("build", str(other), "--out", str(out), "--force")
+    assert release(first) == 0
     assert second.returncode == 2
     assert "another ebglayout run" in second.stderr and second.stderr.count("\n") == 1
-    assert first.wait(60) == 0
     assert cli("build", str(STRAIGHT), "--out", str(reference)).returncode == 0
     assert listing(out) == listing(reference)
     for name in listing(out):
@@ -191,7 +202,7 @@ def test_of_two_new_builds_only_one_succeeds(tmp_path):
     out = tmp_path / "out"
     first, _ = slowed(tmp_path, "ebglayout.pipeline.make_filter", ["build", str(STRAIGHT), "--out", str(out)])
     second = cli("build", str(STRAIGHT), "--out", str(out))
-    assert first.wait(60) == 0
+    assert release(first) == 0
     assert second.returncode == 2 and "another ebglayout run" in second.stderr
     assert listing(out) == sorted(output_names(NAME))
 
@@ -203,7 +214,7 @@ def test_of_two_place_runs_to_one_board_one_wins(tmp_path):
             "--out", str(tmp_path / "new.kicad_pcb")]
     first, _ = slowed(tmp_path, "ebglayout.kicad.workflow.plan_placement", argv)
     second = cli(*argv)
-    assert first.wait(60) == 0
+    assert release(first) == 0
     assert second.returncode == 2 and "another ebglayout run" in second.stderr
     assert (tmp_path / "new.kicad_pcb").exists() and (tmp_path / "new.kicad_dru").exists()
 
@@ -211,7 +222,7 @@ def test_of_two_place_runs_to_one_board_one_wins(tmp_path):
 def test_a_killed_run_leaves_named_leftovers_that_the_next_run_clears(tmp_path):
     out = tmp_path / "out"
     proc, _ = slowed(tmp_path, "ebglayout.export.gds.write_gds", ["build", str(STRAIGHT), "--out", str(out),
-                                                                  "--jobs", "1"], seconds=60)
+                                                                  "--jobs", "1"])
     proc.send_signal(signal.SIGKILL)
     proc.wait(10)
     left = [n for n in listing(out) if ".ebglayout-unfinished-" in n]
@@ -236,7 +247,7 @@ def _alive(pid: int) -> bool:
 def test_the_forked_dxf_writer_dies_with_its_killed_parent(tmp_path):
     out = tmp_path / "out"
     parent, child = slowed(tmp_path, "ebglayout.export.dxf.write_dxf", ["build", str(STRAIGHT), "--out", str(out),
-                                                                        "--jobs", "2"], seconds=60)
+                                                                        "--jobs", "2"])
     assert child != parent.pid and _alive(child)
     parent.send_signal(signal.SIGKILL)
     parent.wait(10)
