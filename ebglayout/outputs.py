@@ -199,9 +199,12 @@ class StagedOutputs:
         writes them), and say so."""
         removed = []
         for target in targets:
-            for stale in target.parent.glob(f"{_glob_escape(target.name)}{UNFINISHED}*"):
-                stale.unlink(missing_ok=True)
-                removed.append(stale.name)
+            name = _glob_escape(target.name)
+            legacy = (f".{name}.*.part", f".{name}.*.tmp")  # how versions before the lock named them
+            for pattern in (f"{name}{UNFINISHED}*", *legacy):
+                for stale in target.parent.glob(pattern):
+                    stale.unlink(missing_ok=True)
+                    removed.append(stale.name)
         if removed:
             _note(f"removed {len(removed)} unfinished file(s) an interrupted run left in "
                   f"{targets[0].parent}: {', '.join(sorted(removed))}")
