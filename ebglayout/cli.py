@@ -183,8 +183,13 @@ def _check(args) -> int:
 
     if (args.spec is None) == (args.board is None):
         raise EbgError("check: give either a SPEC file or --board BOARD")
-    source = args.board if args.board is not None else args.spec
-    junit = StagedOutputs(args.junit.parent, force=True, inputs=(source,), option="--junit") if args.junit else None
+    if args.board is not None:
+        from .kicad.workflow import board_files
+
+        sources = board_files(args.board)
+    else:
+        sources = (args.spec,)
+    junit = StagedOutputs(args.junit.parent, force=True, inputs=sources, option="--junit") if args.junit else None
     with junit if junit else nullcontext():
         if junit:
             junit.require_free([args.junit.name])

@@ -111,6 +111,14 @@ def _junit_is_board(tmp_path):
     return ["check", "--board", str(board), "--junit", str(board)], board
 
 
+def _junit_is_the_board_rules(tmp_path):
+    board = tmp_path / "b.kicad_pcb"
+    shutil.copyfile(BOARD, board)
+    rules = board.with_suffix(".kicad_dru")
+    rules.write_text("(version 1)\n")
+    return ["check", "--board", str(board), "--junit", str(rules)], rules
+
+
 def _spec_is_an_output_name(tmp_path):
     spec = _spec_as(tmp_path, "out/hx2.kicad_mod")  # its name is its stem, so the footprint would replace it
     return ["build", str(spec), "--out", str(tmp_path / "out"), "--force"], spec
@@ -151,6 +159,7 @@ def _place_artifacts_over_the_spec(tmp_path):
 
 
 @pytest.mark.parametrize("case", [_junit_is_spec, _junit_is_spec_through_dotdot, _junit_is_board,
+                                  _junit_is_the_board_rules,
                                   _spec_is_an_output_name, _output_is_a_symlink_to_the_spec,
                                   _output_is_a_hard_link_to_the_spec, _place_rules_over_the_spec,
                                   _place_artifacts_over_the_spec], ids=lambda f: f.__name__.strip("_"))

@@ -344,6 +344,11 @@ def _pairs_for(board: Board, requests: list[Request]) -> list[BoardPair]:
     return find_pairs(board, only=wanted) if wanted else []
 
 
+def board_files(board_path: str | Path) -> tuple[Path, Path]:
+    """The files a board job reads: the board and the rules file beside it (which need not exist)."""
+    return Path(board_path), Path(board_path).with_suffix(".kicad_dru")
+
+
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
           force: bool = False, progress=None, inputs=()) -> Placement:
     """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs.
@@ -355,7 +360,7 @@ def place(board_path: str | Path, requests: list[Request], out_path: str | Path,
     if out_path.suffix != ".kicad_pcb":
         raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
     source_rules = board_path.with_suffix(".kicad_dru")
-    inputs = (board_path, source_rules, *inputs, *(Path(r.source) for r in requests))
+    inputs = (*board_files(board_path), *inputs, *(Path(r.source) for r in requests))
     staged = StagedOutputs(out_path.parent, force=force, inputs=inputs)
     art = StagedOutputs(artifacts, force=force, inputs=inputs, option="--artifacts") if artifacts else None
     rules_name = out_path.with_suffix(".kicad_dru").name
