@@ -20,7 +20,7 @@ from typing import Iterable, Iterator
 from .errors import EbgError
 
 UNFINISHED = ".ebglayout-unfinished-"
-"""Marks a staged file: ``<output name>.ebglayout-unfinished-<pid>`` (``-<pid>.<n>`` for a writer's own stage)."""
+"""Marks a staged file: ``<output name>.ebglayout-unfinished-<pid>``."""
 LOCK_SUFFIX = ".ebglayout-lock"
 
 
@@ -36,9 +36,9 @@ class OutputWriteError(EbgError):
     """Writing an output failed (disk full, no permission...); the message names the output, not a staged file."""
 
 
-def unfinished_name(name: str, tag: str = "") -> str:
-    """The staged name of output ``name`` for this process (``tag`` tells apart a writer's own stage)."""
-    return f"{name}{UNFINISHED}{os.getpid()}{tag}"
+def unfinished_name(name: str) -> str:
+    """The staged name of output ``name`` for this process."""
+    return f"{name}{UNFINISHED}{os.getpid()}"
 
 
 def refuse_inputs(option: str, outputs: Iterable[Path], inputs: Iterable[Path]) -> None:
@@ -126,7 +126,7 @@ class StagedOutputs:
 
     def __init__(self, folder: str | Path, force: bool = False, inputs: Iterable[str | Path] = (),
                  option: str = "--out"):
-        self.folder = Path(folder) if str(folder) else Path(".")
+        self.folder = Path(folder)
         self.force = force
         self.inputs = tuple(Path(p) for p in inputs)
         self.option = option

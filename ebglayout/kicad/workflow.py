@@ -13,6 +13,7 @@ import json
 import math
 import re
 import tomllib
+from contextlib import nullcontext
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -354,13 +355,10 @@ def place(board_path: str | Path, requests: list[Request], out_path: str | Path,
     """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs.
 
     Nothing is written over the board, its rules, the specs or any other of ``inputs`` (a plan file)."""
-    from contextlib import nullcontext
-
-    board_path, out_path = Path(board_path), Path(out_path)
+    (board_path, source_rules), out_path = board_files(board_path), Path(out_path)
     if out_path.suffix != ".kicad_pcb":
         raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
-    source_rules = board_path.with_suffix(".kicad_dru")
-    inputs = (*board_files(board_path), *inputs, *(Path(r.source) for r in requests))
+    inputs = (board_path, source_rules, *inputs, *(Path(r.source) for r in requests))
     staged = StagedOutputs(out_path.parent, force=force, inputs=inputs)
     art = StagedOutputs(artifacts, force=force, inputs=inputs, option="--artifacts") if artifacts else None
     rules_name = out_path.with_suffix(".kicad_dru").name
