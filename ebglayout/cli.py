@@ -92,7 +92,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--spec", type=Path, help="the filter spec (cut, rules; pair geometry comes from the board)")
     p.add_argument("--plan", type=Path, help="TOML plan with [[filter]] tables (spec + pair or match) for many pairs")
     p.add_argument("--out", type=Path, required=True, help="the new .kicad_pcb (never the input)")
-    p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and <name>.report.json here")
+    p.add_argument("--artifacts", type=Path,
+                   help="also write each filter's GDSII, DXF, SVG, PNG and <name>.report.json here")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("kicad-package", "build the KiCad Plugin and Content Manager zip of the action plugin")

@@ -192,7 +192,8 @@ def _least_at_full_crossings(layout: Layout, rule: str, unit: str, limit: float,
         r.checked += 1
         r.see(v)
         if v < limit - 1e-6:
-            r.add("error", f"{c.layer}: trace {c.polarity} {describe(show(v))} (min {show(limit)})", c.point, v, limit, c.layer)
+            r.add("error", f"{c.layer}: trace {c.polarity} {describe(show(v))} (min {show(limit)})", c.point, v, limit,
+                  c.layer)
     return r
 
 
@@ -258,7 +259,8 @@ def copper_width(layout: Layout, ctx: CheckContext) -> RuleResult:
         if narrow:
             r.see(narrow.width)
         for place in places:
-            r.add("error", f"{cut.layer}: copper neck {shown(layout, place.width)} wide (min {shown(layout, spec.min_copper)})",
+            r.add("error", f"{cut.layer}: copper neck {shown(layout, place.width)} wide "
+                  f"(min {shown(layout, spec.min_copper)})",
                   place.at, place.width, spec.min_copper, cut.layer)
     return r
 
@@ -274,7 +276,8 @@ def bridge_keepout(layout: Layout, ctx: CheckContext) -> RuleResult:
             r.see(distance)
             if distance < spec.bridge_keep - 1e-6:
                 c = bridge.centroid
-                r.add("error", f"{cut.layer}: bridge {shown(layout, distance)} from a trace (keep {shown(layout, spec.bridge_keep)})",
+                r.add("error", f"{cut.layer}: bridge {shown(layout, distance)} from a trace "
+                      f"(keep {shown(layout, spec.bridge_keep)})",
                       (c.x, c.y), distance, spec.bridge_keep, cut.layer)
     return r
 
@@ -350,7 +353,8 @@ def plane_edge(layout: Layout, ctx: CheckContext) -> RuleResult:
         if not inside:
             r.add("error", f"cell {cell.index} is not inside the plane outline", cell.centre, 0.0, spec.edge_clearance)
         elif distance < spec.edge_clearance - 1e-6:
-            r.add("error", f"cell {cell.index} is {shown(layout, distance)} from the plane edge (min {shown(layout, spec.edge_clearance)})",
+            r.add("error", f"cell {cell.index} is {shown(layout, distance)} from the plane edge "
+                  f"(min {shown(layout, spec.edge_clearance)})",
                   cell.centre, distance, spec.edge_clearance)
     return r
 

@@ -536,7 +536,8 @@ def _dimensions(layout: Layout, view: View) -> list:
     text_at = frame.board(pu0 + 0.2 * (pu1 - pu0), ov1 + off)
     tx, ty = view.px(*text_at)
     items += _arrow((tx, ty), slot_at, dim, start_head=False)
-    items.append(_dim_text(view, text_at, frame.direction(0.0, 1.0), f"slot {format_length(ov1 - pv1, units)}", gap=3.0))
+    items.append(_dim_text(view, text_at, frame.direction(0.0, 1.0), f"slot {format_length(ov1 - pv1, units)}",
+                           gap=3.0))
     return items
 
 

@@ -120,7 +120,8 @@ def _add_dimensions(doc, layout: Layout, text_height: float) -> None:
     doc.dimstyles.add(DIMSTYLE, dxfattribs={
         "dimtxt": h, "dimasz": 0.6 * h, "dimexo": 0.3 * h, "dimexe": 0.5 * h, "dimgap": 0.3 * h,
         "dimdec": 4, "dimlunit": 2, "dimdsep": ord("."), "dimtad": 1, "dimzin": 8, "dimtih": 0,
-        "dimtoh": 0, "dimtix": 0, "dimlfac": 1 / LENGTH_UNITS_MM[layout.spec.units], "dimpost": f"<> {layout.spec.units}",
+        "dimtoh": 0, "dimtix": 0,
+        "dimlfac": 1 / LENGTH_UNITS_MM[layout.spec.units], "dimpost": f"<> {layout.spec.units}",
     })
     msp = doc.modelspace()
     attribs = {"layer": DIMENSION_LAYER[0]}
