@@ -11,10 +11,10 @@ from itertools import combinations
 import pytest
 from PIL import ImageFont
 from shapely.affinity import affine_transform
-from shapely.geometry import LineString, Polygon, box
+from shapely.geometry import LineString, Point, Polygon, box
 from shapely.ops import unary_union
 
-from ebglayout.export.drawing import CAP, NOTCH_BOX, Fill, Text, build_drawing
+from ebglayout.export.drawing import CAP, NOTCH_BOX, Fill, Markers, Text, build_drawing
 from ebglayout.export.png import _font
 from ebglayout.layout import build_layout
 from ebglayout.pipeline import make_filter
@@ -79,7 +79,7 @@ def measured_box(text: Text):
     return box(x + left - 2, text.y + top - 2, x + right + 2, text.y + bottom + 2)
 
 
-def test_finding_labels_never_overlap_each_other_or_the_traces():
+def test_finding_labels_never_overlap_each_other_the_traces_other_copper_or_other_rings():
     result, items = crowded()
     labels = [i for i in items if isinstance(i, Text) and i.role == "finding-label"]
     boxes = [measured_box(t) for t in labels]
@@ -88,9 +88,13 @@ def test_finding_labels_never_overlap_each_other_or_the_traces():
     fill, _ = board_fill(items, "trace-P")
     a, b, c, d, e, f = fill.view.matrix
     traces = affine_transform(unary_union([t.polygon for t in result.layout.traces]), [a, c, b, d, e, f])
-    track = affine_transform(board_fill(items, "track")[1], [a, c, b, d, e, f])
+    copper = affine_transform(board_fill(items, "track")[1].union(board_fill(items, "via")[1]), [a, c, b, d, e, f])
+    rings = {m.points[0]: Point(m.points[0]).buffer(m.size_px / 2 + m.edge_px / 2)
+             for m in items if isinstance(m, Markers) and m.role == "finding"}
     for label, region in zip(labels, boxes):
-        assert not region.intersects(traces) and not region.intersects(track), label.text
+        assert not region.intersects(traces) and not region.intersects(copper), label.text
+        touched = [at for at, ring in rings.items() if region.intersects(ring)]
+        assert len(touched) <= 1, (label.text, touched)  # at most the ring it names
     assert {t.text for t in labels} == {f.rule for f in result.checks.findings}, "a rule went unlabelled"
 
 

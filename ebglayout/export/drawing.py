@@ -310,7 +310,8 @@ def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View
         numbers = numbers + [d for d in dims if isinstance(d, Text)]
     units = spec.units
     rings, labels, left_out = _finding_marks(_findings_for(findings, layers, spec.plane_layers), view,
-                                             _page_shape([t.polygon for t in layout.traces] + [copper["track"]], view),
+                                             _page_shape([t.polygon for t in layout.traces] + list(copper.values()),
+                                                         view),
                                              [t.box() for t in net_labels + numbers])
     items += rings + labels
     scale = LENGTH_UNITS_MM[units]
@@ -379,22 +380,27 @@ COVERED_PX = 90.0
 """A finding whose rule id is already written this close (page px) to its ring gets no second label."""
 
 
+RING_PX = 23.0
+
+
 def _finding_marks(findings: list, view: View, avoid, taken: list) -> tuple[list, list, int]:
-    """A ring at each finding and its rule id where it overlaps no other label, no trace and no other copper:
-    beside the ring, else farther out with a leader line.  Returns rings, labels and how many were left out."""
+    """A ring at each finding and its rule id where it overlaps no other label, no other finding's ring, no trace
+    and no other copper: beside the ring, else farther out with a leader line.  Returns rings, labels and how many
+    were left out."""
+    centres = [view.px(*f.at) for f in findings]
     rings: list = []
     labels: list = []
     written: list[tuple[str, float, float]] = []
     boxes = list(taken)
     frame = (view.left + 2, view.top + 2, view.right - 2, view.bottom - 2)
     left_out = 0
-    for f in findings:
+    for f, (x, y) in zip(findings, centres):
         colour = COLOURS["error"] if f.severity == "error" else COLOURS["warning"]
-        x, y = view.px(*f.at)
-        rings.append(Markers(((x, y),), "ring", 23.0, None, colour, 3.0, "finding"))
+        rings.append(Markers(((x, y),), "ring", RING_PX, None, colour, 3.0, "finding"))
         if any(rule == f.rule and math.hypot(x - wx, y - wy) <= COVERED_PX for rule, wx, wy in written):
             continue
-        placed = _free_label(f.rule, x, y, colour, frame, boxes, avoid)
+        others = [c for c in centres if math.hypot(c[0] - x, c[1] - y) > 1.0]
+        placed = _free_label(f.rule, x, y, colour, frame, boxes, avoid, others)
         if placed is None:
             left_out += 1
             continue
@@ -411,9 +417,10 @@ def _finding_marks(findings: list, view: View, avoid, taken: list) -> tuple[list
     return rings, labels, left_out
 
 
-def _free_label(rule: str, x: float, y: float, colour: str, frame: tuple, boxes: list, avoid):
+def _free_label(rule: str, x: float, y: float, colour: str, frame: tuple, boxes: list, avoid, rings: list):
     """The first label position around (x, y), nearest first, whose box is inside ``frame`` and clear of
-    ``boxes`` and ``avoid``; (Text, radius) or None."""
+    ``boxes``, ``avoid`` and the finding rings centred at ``rings``; (Text, radius) or None."""
+    reach = RING_PX / 2 + 1.5
     for radius in LABEL_RADII:
         for k in range(LABEL_TURNS):
             angle = math.pi / 4 + 2 * math.pi * k / LABEL_TURNS
@@ -425,6 +432,8 @@ def _free_label(rule: str, x: float, y: float, colour: str, frame: tuple, boxes:
             if x0 < frame[0] or y0 < frame[1] or x1 > frame[2] or y1 > frame[3]:
                 continue
             if any(x0 < b[2] and b[0] < x1 and y0 < b[3] and b[1] < y1 for b in boxes):
+                continue
+            if any(math.hypot(max(x0 - rx, 0.0, rx - x1), max(y0 - ry, 0.0, ry - y1)) < reach for rx, ry in rings):
                 continue
             if avoid is not None and not avoid.is_empty and avoid.intersects(box(x0, y0, x1, y1)):
                 continue
