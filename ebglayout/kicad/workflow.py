@@ -516,7 +516,8 @@ def _recheck(job: _Recheck, index: int) -> CheckReport:
         else CheckContext(estimate=estimate)
     report = run_checks(layout, context, estimate=estimate)
     fill = RuleResult("kicad-fill", checked=1, unit="")
-    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, job.rules):
+    present = replace(layout, cuts=tuple(c for c in layout.cuts if not c.outline.is_empty))  # placed-footprint: the rest
+    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), present, spec.plane_net, job.rules):
         fill.add("warning", risk, layout.cells[0].centre)
     if not match:
         fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
