@@ -73,6 +73,25 @@ def test_untouched_board_is_clean(placed):
         assert all(results[rule].checked >= 1 and not results[rule].findings for rule in PLACED_RULES)
 
 
+@pytest.mark.parametrize("board, spec, pair", [
+    (SAMPLES / "hx2_hub.kicad_pcb", "hx2_l2_tx_bridged.toml", ("HX2_L1_RX_P", "HX2_L1_RX_N")),
+    (SAMPLES.parent / "tests" / "boards" / "hx2_stripline6.kicad_pcb", "hx2_l3_rx_stripline.toml",
+     ("HX2_L3_RX_DP", "HX2_L3_RX_DN")),
+    (SAMPLES.parent / "tests" / "boards" / "hx2_v9.kicad_pcb", "hx2_l0_tx_straight.toml", ("HX2_L1_RX_P", "HX2_L1_RX_N")),
+])
+def test_board_cut_reads_back_as_designed(board, spec, pair, tmp_path):
+    """Bridged (patch and bridges in one copper zone), stripline (two layers) and a KiCad 9 board: the cut read
+    from the footprint's items is the design, role by role, to the nanometre grid."""
+    out = tmp_path / "placed.kicad_pcb"
+    assert main(["place", str(board), "--pair", *pair, "--spec", str(SAMPLES / spec), "--out", str(out)]) == 0
+    _, layout, cut = _fil1(out)
+    assert len(cut.cuts) == len(layout.cuts) and not cut.elsewhere
+    for designed, read in zip(layout.cuts, cut.cuts):
+        for role in ("slot", "patch", "bridge", "outline"):
+            assert designed.role(role).symmetric_difference(read.role(role)).area < 1e-9, (designed.layer, role)
+    assert not any(f.rule.startswith("placed-") for f in _findings(out))
+
+
 def test_check_board_json_is_json_alone(placed, tmp_path, capsys):
     """--json prints one JSON document and nothing else, also on a board without filters (the note goes to stderr)."""
     assert main(["check", "--board", str(placed), "--json", "--jobs", "1"]) == 0
@@ -185,6 +204,20 @@ def test_text_edit_footprint_moved(placed, tmp_path):
     assert away.layer == "In1.Cu" and "no longer under the pair" in away.message
     assert any(f.rule == "crossing-count" and f.severity == "error" for f in _findings(edited))
     assert not _findings(edited, reference="FIL2")  # the other filter is untouched
+
+
+def test_text_edit_bridged_patch_zone_removed(placed, tmp_path):
+    text = placed.read_bytes()
+    a, b = _span(text, "FIL2")
+    footprint = text[a:b]
+    copper = [(za, zb) for za, zb in _blocks(footprint, b"zone") if b"(keepout" not in footprint[za:zb]]
+    za, zb = copper[0]
+    patch = Polygon(_points(footprint[za:zb]))
+    edited = _save_as(placed, tmp_path / "no_patch.kicad_pcb", text[:a] + footprint[:za] + footprint[zb:] + text[b:])
+    (missing,) = _findings(edited, reference="FIL2", rule="placed-copper")
+    assert "missing" in missing.message and patch.distance(Point(missing.at)) <= PLACE_TOL
+    assert missing.value == pytest.approx(patch.area, abs=AREA_TOL)
+    assert not _findings(edited, reference="FIL1")
 
 
 def test_text_edit_rule_area_on_another_layer(placed, tmp_path):
