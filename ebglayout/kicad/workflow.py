@@ -33,8 +33,8 @@ from ..spec import Arc, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
-from .placed import board_cuts, placed_results
 from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
+from .placed import board_cuts, placed_results
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -410,8 +410,8 @@ def _cells_moved(layout: Layout, footprint) -> Layout:
         return layout
     t = math.radians(rot)
     c, s = math.cos(t), math.sin(t)
-    a, b, d, e = c, s * flip, -s, c * flip
-    matrix = [a, b, d, e, x - a * ox - b * oy, y - d * ox - e * oy]
+    xx, xy, yx, yy = c, s * flip, -s, c * flip
+    matrix = [xx, xy, yx, yy, x - xx * ox - xy * oy, y - yx * ox - yy * oy]
     cells = tuple(replace(cell, patch=affine_transform(cell.patch, matrix), outer=affine_transform(cell.outer, matrix),
                           bridges=tuple(affine_transform(b, matrix) for b in cell.bridges),
                           centre=tuple(np.round(affine_transform(shapely.Point(cell.centre), matrix).coords[0], 6)),
