@@ -20,7 +20,7 @@ from shapely.ops import unary_union
 from ebglayout.cli import main
 from ebglayout.kicad.board import parse_board, read_board
 from ebglayout.kicad.placed import board_cuts
-from ebglayout.kicad.workflow import check_board, placed_designs
+from ebglayout.kicad.workflow import _cells_moved, check_board, placed_designs
 from ebglayout.layout import build_layout
 from ebglayout.spec import spec_from_dict
 
@@ -288,6 +288,11 @@ def test_kicad_saved_untouched_board_is_clean(pcbnew, placed, tmp_path):
     assert _same(cut.cuts[0].outline, outline) and _same(cut.cuts[0].patch, patches)
 
 
+def _moved_cells(footprint, layout):
+    """The union of the design's patches as `check --board` moves its cells to where the footprint sits."""
+    return unary_union([cell.patch for cell in _cells_moved(layout, footprint).cells])
+
+
 def _turn(pcbnew, footprint):
     footprint.SetOrientationDegrees(90)
 
@@ -298,9 +303,10 @@ def _flip(pcbnew, footprint):
 
 def test_kicad_turned_footprint(pcbnew, placed, tmp_path):
     path, board, footprint, _ = _with_kicad(pcbnew, placed, tmp_path, "turned", _turn)
-    _, layout, cut = _fil1(path)
+    read, layout, cut = _fil1(path)
     outline, patches = _kicad_geometry(pcbnew, board, footprint, "In1.Cu")
     assert _same(cut.cuts[0].outline, outline) and _same(cut.cuts[0].patch, patches)  # read as KiCad placed it
+    assert _same(_moved_cells(read, layout), patches)  # the design's cells, which the cell rules read, follow it
     (turned,) = [f for f in _findings(path, rule="placed-footprint") if "turned" in f.message]
     assert "90 deg" in turned.message and Point(turned.at).distance(Point(_position(footprint))) <= PLACE_TOL
     # the turned cut is measured: its slots lie across the pair now, so each trace crosses fewer of them
@@ -312,9 +318,10 @@ def test_kicad_turned_footprint(pcbnew, placed, tmp_path):
 def test_kicad_flipped_footprint(pcbnew, placed, tmp_path):
     path, board, footprint, _ = _with_kicad(pcbnew, placed, tmp_path, "flipped", _flip)
     assert footprint.GetLayerName() == "B.Cu"
-    _, layout, cut = _fil1(path)
+    read, layout, cut = _fil1(path)
     outline, patches = _kicad_geometry(pcbnew, board, footprint, "In2.Cu")  # KiCad moves In1.Cu items to In2.Cu (4 layers)
     assert not outline.is_empty and _same(cut.elsewhere["In2.Cu"], outline)
+    assert _same(_moved_cells(read, layout), patches)
     assert cut.cuts[0].outline.is_empty
     found = _findings(path, rule="placed-footprint")
     assert any("flipped to B.Cu" in f.message and Point(f.at).distance(Point(_position(footprint))) <= PLACE_TOL
