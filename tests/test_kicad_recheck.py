@@ -178,6 +178,24 @@ def test_text_edit_patch_changed(placed, tmp_path):
     assert "outside the designed slot" in widened.message and removed.distance(Point(widened.at)) <= PLACE_TOL
 
 
+def test_unreadable_patch_polygon_is_left_out_with_a_warning(placed, tmp_path):
+    """An fp_poly cut down to two points reads as no patch (with a reader warning), not as a failed check."""
+    text = placed.read_bytes()
+    a, b = _span(text, "FIL1")
+    footprint = text[a:b]
+    pa, pb = _blocks(footprint, b"fp_poly")[0]
+    points = re.findall(rb"\(xy [-0-9.]+ [-0-9.]+\)", footprint[pa:pb])
+    cut = footprint[pa:pb].replace(b" ".join(points), b" ".join(points[:2]))
+    edited = _edit_fil1(placed, tmp_path, "two_points", lambda t: t[:pa] + cut + t[pb:])
+    board = read_board(edited)
+    assert len(next(fp for fp, _ in placed_designs(board) if fp.reference == "FIL1").polygons) == 2
+    assert any("without 3 readable points" in w for w in board.warnings)
+    ox, oy = _at(footprint)
+    patch = Polygon([(ox + x, oy + y) for x, y in _points(footprint[pa:pb])])
+    (missing,) = _findings(edited, rule="placed-copper")
+    assert patch.distance(Point(missing.at)) <= PLACE_TOL and missing.value == pytest.approx(patch.area, abs=AREA_TOL)
+
+
 def test_text_edit_footprint_moved(placed, tmp_path):
     dy = 3.0
 

@@ -1151,15 +1151,24 @@ class _Reader:
         return Footprint(fp.reference, fp.value, fp.lib_id, fp.at, rot, fp.layer, pads, (start, end), polygons)
 
     def _copper_polygon(self, node: list, fp: Footprint, start: int) -> list[FootprintPolygon]:
-        """A filled ``fp_poly`` on copper (KiCad 6-9 spellings) in board coordinates; [] for anything else."""
+        """A filled ``fp_poly`` on copper (KiCad 6-9 spellings) in board coordinates; [] for anything else.
+
+        A polygon that cannot be read is left out with a warning: any footprint may hold one, and only
+        ebglayout's own footprints are measured from these.
+        """
         layer = _child(node, "layer")
         layers = expand_layers(str(layer[1]), self.copper, self.layer_names) if layer is not None and len(layer) > 1 \
             else []
         if not layers or _atom(node, "fill") not in ("solid", "yes"):
             return []
-        ring = _ring(_child(node, "pts"))
+        try:
+            ring = _ring(_child(node, "pts"))
+        except (TypeError, ValueError, IndexError):
+            ring = ()
         if len(ring) < 3:
-            raise self.fail(start, f"footprint {fp.reference}: fp_poly with fewer than 3 points")
+            self.warnings.append(f"footprint {fp.reference}: an fp_poly on {layers[0]} without 3 readable points "
+                                 f"(byte {start}) was left out")
+            return []
         polygon = shapely.make_valid(Polygon([fp.to_board(x, y) for x, y in ring.tolist()]))
         width = _num(_child(node, "stroke"), "width") or _num(node, "width")
         if width:
