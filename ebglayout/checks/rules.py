@@ -69,7 +69,8 @@ RULES: tuple[Rule, ...] = (
          "overridden rule, plane min width above a web, zone priorities, unfilled or hatched planes", "none",
          "measured with the zone filler of KiCad 6.0.11 and 9.0.2 (tests/test_kicad_fill.py)"),
     Rule("placed-slot", "(boards only) the slots on the board, read from the filter footprint's rule areas and copper, "
-         "are the stored design's: no slot area filled, narrowed, widened or moved", "0 mm2 differing",
+         "are the stored design's: every designed slot inside the rule areas and clear of patch copper, nothing cut "
+         "beyond it", "0 mm2 differing",
          "geometry: the design that was checked when placed is the reference (differences under 1 um are rounding)"),
     Rule("placed-copper", "(boards only) the patch and bridge copper on the board (footprint polygons and copper zones) "
          "is the stored design's: no patch removed, edited or moved", "0 mm2 differing",
