@@ -201,8 +201,9 @@ def _check(args) -> int:
             from .kicad.workflow import check_board
 
             reports = check_board(args.board, jobs=_jobs(args.jobs))
-            if not reports:
-                print(f"{args.board}: no ebglayout filters on this board")
+            if not reports:  # a note, not a result: --json keeps stdout to the JSON alone
+                print(f"{args.board}: no ebglayout filters on this board",
+                      file=sys.stderr if args.json else sys.stdout)
         else:
             from .pipeline import make_filter
             from .spec import load_spec
