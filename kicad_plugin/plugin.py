@@ -73,7 +73,9 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
         if fp is None:
             raise RuntimeError("KiCad could not load the generated footprint")
     priority = workflow.zone_priority_for(placement.board_text, layout, layout.spec.plane_net)
-    staged = rules_path.with_name(f".{rules_path.name}.part")
+    from ebglayout.outputs import unfinished_name
+
+    staged = rules_path.with_name(unfinished_name(rules_path.name))
     staged.write_text(placement.rules_text, encoding="utf-8")
     try:
         board.Add(fp)

@@ -57,7 +57,7 @@ def placed(board, capsys, *args):
     art = board.with_name(f"{board.stem}_art")
     assert main(["place", str(board), *args, "--out", str(out), "--artifacts", str(art)]) == 0
     capsys.readouterr()
-    reports = [json.loads(p.read_text()) for p in sorted(art.glob("*/report.json"))]
+    reports = [json.loads(p.read_text()) for p in sorted(art.glob("*/*report.json"))]
     return out, reports
 
 
