@@ -12,7 +12,6 @@ cd "$(dirname "$0")/.."
 repo=$PWD
 suite=trixie
 root=$repo/.ci-roots/$suite
-root_in_mountinfo=${root// /\\040}
 tree=/srv/ebglayout            # the copy of the working tree, inside the root
 venv=/srv/ebglayout-venv       # kept between runs: only the tree copy is renewed
 base_done=$root/.ebglayout-base-ok
@@ -71,30 +70,32 @@ host_mirror() {
     return 1
 }
 
-mounts_under_root() {
-    awk -v r="$root_in_mountinfo/" 'index($5, r) == 1 { print $5 }' /proc/self/mountinfo | sort -r
+mounts_under() {
+    # Mount points at or below $1, deepest first, as /proc/self/mountinfo spells them (a space is \040).
+    MOUNT_PREFIX=${1// /\\040} awk 'BEGIN { p = ENVIRON["MOUNT_PREFIX"] }
+        $5 == p || index($5, p "/") == 1 { print $5 }' /proc/self/mountinfo | sort -r
 }
 
 unmount_root() {
     local m pass
     for pass in 1 2 3 4 5; do
-        [ -z "$(mounts_under_root)" ] && return 0
-        while read -r m; do umount "$(printf '%b' "$m")" 2>/dev/null || true; done < <(mounts_under_root)
-        [ -z "$(mounts_under_root)" ] && return 0
+        [ -z "$(mounts_under "$root")" ] && return 0
+        while read -r m; do umount "$(printf '%b' "$m")" 2>/dev/null || true; done < <(mounts_under "$root")
+        [ -z "$(mounts_under "$root")" ] && return 0
         sleep 1
     done
-    while read -r m; do umount -l "$(printf '%b' "$m")" 2>/dev/null || true; done < <(mounts_under_root)
-    if [ -n "$(mounts_under_root)" ]; then
+    while read -r m; do umount -l "$(printf '%b' "$m")" 2>/dev/null || true; done < <(mounts_under "$root")
+    if [ -n "$(mounts_under "$root")" ]; then
         echo "== KiCad 9 root: could not unmount, still mounted:" >&2
-        mounts_under_root >&2
+        mounts_under "$root" >&2
         return 1
     fi
 }
 
 remove_inside_root() {
     # rm -rf only with nothing mounted anywhere in the root, and never across a file system boundary.
-    if [ -n "$(mounts_under_root)" ]; then
-        echo "== KiCad 9 root: refusing to delete $1 while something is mounted under $root" >&2
+    if [ -n "$(mounts_under "$1")" ]; then
+        echo "== KiCad 9 root: refusing to delete $1 while something is mounted there" >&2
         exit 1
     fi
     rm -rf --one-file-system "$1"
