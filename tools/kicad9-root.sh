@@ -143,12 +143,13 @@ carry_pip_config() {
         path=${token#file://}
         [[ "$path" == /?* ]] && [ -e "$path" ] || continue
         if [[ "$token" == file://* ]] && [ -d "$path" ]; then path=$(dirname "$path"); fi
-        [ ! -e "$root$path" ] || continue
         if [ -d "$path" ]; then
+            # An empty folder there is the mount point an earlier run left; anything else is the root's own.
+            [ -z "$(ls -A "$root$path" 2>/dev/null)" ] || continue
             mkdir -p "$root$path"
             mount --bind "$path" "$root$path"
             mount -o remount,bind,ro "$root$path"
-        else
+        elif [ ! -e "$root$path" ]; then
             mkdir -p "$root$(dirname "$path")"
             cp "$path" "$root$path"
         fi
