@@ -126,7 +126,7 @@ carry_pip_config() {
     IFS=: read -r -a xdg_dirs <<< "${XDG_CONFIG_DIRS:-/etc/xdg}"
     sources+=(/etc/pip.conf); targets+=(/etc/pip.conf)
     for d in "${xdg_dirs[@]}"; do sources+=("$d/pip/pip.conf"); targets+=("$d/pip/pip.conf"); done
-    sources+=("${XDG_CONFIG_HOME:-$HOME/.config}/pip/pip.conf" "$HOME/.pip/pip.conf")
+    sources+=("${XDG_CONFIG_HOME:-${HOME:-/root}/.config}/pip/pip.conf" "${HOME:-/root}/.pip/pip.conf")
     targets+=(/root/.config/pip/pip.conf /root/.pip/pip.conf)
     if [ -n "${PIP_CONFIG_FILE:-}" ] && [ "$PIP_CONFIG_FILE" != /dev/null ]; then
         sources+=("$PIP_CONFIG_FILE"); targets+=("$PIP_CONFIG_FILE")
