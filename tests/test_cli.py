@@ -16,7 +16,7 @@ from ebglayout.spec import load_spec
 
 from conftest import ROOT, SAMPLE_SPECS
 
-REPORT_KEYS = {"filter", "spec", "cells", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width",
+REPORT_KEYS = {"filter", "spec", "stackup", "cells", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width",
                "gds_layers", "route", "checks", "findings", "estimate", "caution"}
 CHECK_KEYS = {"filter", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width", "summary", "rules",
               "findings"}

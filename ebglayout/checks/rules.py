@@ -68,6 +68,16 @@ RULES: tuple[Rule, ...] = (
     Rule("kicad-fill", "(boards only) settings that would keep KiCad's pour from reproducing the cut: missing or "
          "overridden rule, plane min width above a web, zone priorities, unfilled or hatched planes", "none",
          "measured with the zone filler of KiCad 6.0.11 and 9.0.2 (tests/test_kicad_fill.py)"),
+    Rule("placed-slot", "(boards only) the slots on the board, read from the filter footprint's rule areas and copper, "
+         "are the stored design's: every designed slot inside the rule areas and clear of patch copper, nothing cut "
+         "beyond it", "0 mm2 differing",
+         "geometry: the design that was checked when placed is the reference (differences under 1 um are rounding)"),
+    Rule("placed-copper", "(boards only) the patch and bridge copper on the board (footprint polygons and copper zones) "
+         "is the stored design's: no patch removed, edited or moved", "0 mm2 differing",
+         "geometry: the design that was checked when placed is the reference (differences under 1 um are rounding)"),
+    Rule("placed-footprint", "(boards only) the filter footprint sits where it was placed: same position, rotation 0, "
+         "front side, a cut on each of the design's plane layers and no other, under the pair", "0 mm moved",
+         "geometry: a moved, turned or flipped footprint takes its cut away from the pair it was designed for"),
     Rule("notch-target", "estimated notch band covers the target over the er/h tolerance sweep", "target_tolerance = 15 %",
          "cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., sec. 9.7, from memory)"),
 )

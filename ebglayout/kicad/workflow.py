@@ -25,7 +25,7 @@ from shapely.ops import linemerge
 from ..checks import CheckReport, run_checks
 from ..checks.rules import CheckContext, RuleResult
 from ..errors import BoardError, SpecError
-from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
+from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
 from ..pipeline import FilterResult, can_fork, write_filter
@@ -34,6 +34,7 @@ from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
 from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
+from .placed import board_cuts, placed_results
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -141,9 +142,15 @@ def net_lines(board: Board, net: str, layer: str) -> list[LineString]:
     return list(getattr(merged, "geoms", [merged]))
 
 
+def cut_extent(layout: Layout):
+    """Where the filter is: its cuts, or its cells where a board holds no cut of it any more."""
+    extent = shapely.union_all([c.outline for c in layout.cuts])
+    return extent if not extent.is_empty else shapely.union_all([c.outer for c in layout.cells])
+
+
 def board_traces(board: Board, layout: Layout, pair: BoardPair) -> tuple:
     """The pair's real copper near the cut, as traces the crossing code can measure."""
-    area = shapely.union_all([c.outline for c in layout.cuts]).buffer(1.0)
+    area = cut_extent(layout).buffer(1.0)
     traces = []
     for polarity, net in (("P", pair.net_p), ("N", pair.net_n)):
         candidates = net_lines(board, net, pair.layer)
@@ -167,7 +174,7 @@ def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
     ``references`` is ``reference_planes(board)``, passed in when many filters share one board.
     """
     spec = layout.spec
-    bounds = shapely.union_all([c.outline for c in layout.cuts]).bounds
+    bounds = cut_extent(layout).bounds
     tracks, vias = obstacles(board, bounds, spec.plane_layers, exclude_nets=spec.nets)
     found, _ = plane_layers_for(board, spec.pair_layer, spec.plane_net)
     outline = board.outline
@@ -388,28 +395,29 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
     return found
 
 
-def _moved(layout: Layout, footprint) -> Layout:
-    """The design moved and turned to where the footprint sits now (KiCad: y down, rotation counter-clockwise on screen)."""
+def _cells_moved(layout: Layout, footprint) -> Layout:
+    """The design's cells moved, turned and (on B.Cu) mirrored to where the footprint sits now.
+
+    KiCad: y down, board = at + R(t) (local), and a flipped footprint's local frame is
+    the placed one mirrored in y (its file coordinates are already mirrored).  Only
+    the cells move; the cuts are read from the board (``placed.board_cuts``).
+    """
     ox, oy = footprint_origin(layout)
     (x, y), rot = footprint.at, footprint.rotation
-    if math.isclose(x, ox, abs_tol=1e-6) and math.isclose(y, oy, abs_tol=1e-6) and math.isclose(rot % 360, 0, abs_tol=1e-9):
+    flip = -1.0 if footprint.layer == "B.Cu" else 1.0
+    if math.isclose(x, ox, abs_tol=1e-6) and math.isclose(y, oy, abs_tol=1e-6) \
+            and math.isclose(rot % 360, 0, abs_tol=1e-9) and flip > 0:
         return layout
     t = math.radians(rot)
     c, s = math.cos(t), math.sin(t)
-    # board = at + R(local) with local = design - origin; R from KiCad's footprint transform (y down)
-    matrix = [c, s, -s, c, x - c * ox - s * oy, y + s * ox - c * oy]
-
-    def move(g):
-        return as_multipolygon(affine_transform(g, matrix))
-
-    cuts = tuple(PlaneCut(cut.layer, move(cut.slot), move(cut.patch), move(cut.bridge), move(cut.outline))
-                 for cut in layout.cuts)
+    xx, xy, yx, yy = c, s * flip, -s, c * flip
+    matrix = [xx, xy, yx, yy, x - xx * ox - xy * oy, y - yx * ox - yy * oy]
     cells = tuple(replace(cell, patch=affine_transform(cell.patch, matrix), outer=affine_transform(cell.outer, matrix),
                           bridges=tuple(affine_transform(b, matrix) for b in cell.bridges),
                           centre=tuple(np.round(affine_transform(shapely.Point(cell.centre), matrix).coords[0], 6)),
-                          rotation_deg=(cell.rotation_deg - rot) % 360)
+                          rotation_deg=(flip * cell.rotation_deg - rot) % 360)
                   for cell in layout.cells)
-    return replace(with_copper(layout, cuts=cuts), cells=cells)
+    return replace(layout, cells=cells)
 
 
 FILTERS_PER_PROCESS = 4
@@ -491,12 +499,14 @@ def _recheck_in_worker(indices: range) -> list[CheckReport | None]:
 
 
 def _recheck(job: _Recheck, index: int) -> CheckReport:
-    """One placed filter against the board: rebuilt from its stored design, moved to the footprint, measured."""
+    """One placed filter measured on the board's own cut, then compared with the design stored in its footprint."""
     from ..estimate.band import estimate_layout
 
     board, (footprint, design) = job.board, job.designs[index]
     spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
-    layout = _moved(build_layout(spec), footprint)
+    designed = build_layout(spec)
+    on_board = board_cuts(board, footprint, designed)
+    layout = with_copper(_cells_moved(designed, footprint), cuts=on_board.cuts)
     match = [bp for bp in job.pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
     if match:
         pair = max(match, key=lambda bp: bp.length)
@@ -506,12 +516,14 @@ def _recheck(job: _Recheck, index: int) -> CheckReport:
         else CheckContext(estimate=estimate)
     report = run_checks(layout, context, estimate=estimate)
     fill = RuleResult("kicad-fill", checked=1, unit="")
-    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, job.rules):
+    present = replace(layout, cuts=tuple(c for c in layout.cuts if not c.outline.is_empty))  # placed-footprint: the rest
+    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), present, spec.plane_net, job.rules):
         fill.add("warning", risk, layout.cells[0].centre)
     if not match:
         fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
                  f"{spec.pair_layer}", layout.cells[0].centre)
-    return replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,))
+    placed = placed_results(designed, layout, footprint, footprint_origin(designed), on_board)
+    return replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill, *placed))
 
 
 def _design_nets(design: dict) -> list[str]:
