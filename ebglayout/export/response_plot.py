@@ -13,10 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from ..response import DB_FLOOR
-from . import atomic_path
 from .drawing import CAP, COLOURS, Markers, Polyline, Text, _axes, _legend_items, _rect, _ticks
-from .png import PNG_COMPRESS_LEVEL, png_image
-from .svg import svg_text
+from .preview import write_png, write_svg
 
 PLOT_BOX = (110.0, 120.0, 1060.0, 790.0)
 """left, top, right, bottom (px) of the plot; the right column holds the legend and the summary."""
@@ -131,14 +129,8 @@ def build_response_drawing(data: dict, name: str = "") -> list:
 
 def write_response_plot(data: dict, svg_path: str | Path, png_path: str | Path, name: str = "") -> tuple[Path, Path]:
     """Draw a result file's content and write it as SVG and PNG (each atomically); return both paths."""
-    svg_path, png_path = Path(svg_path), Path(png_path)
     items = build_response_drawing(data, name)
-    with atomic_path(svg_path) as tmp:
-        tmp.write_text(svg_text(items, _title(data, name)), encoding="utf-8")
-    image = png_image(items)
-    with atomic_path(png_path) as tmp:
-        image.save(tmp, format="PNG", compress_level=PNG_COMPRESS_LEVEL)
-    return svg_path, png_path
+    return write_svg(items, _title(data, name), svg_path), write_png(items, png_path)
 
 
 def _title(data: dict, name: str) -> str:

@@ -13,6 +13,7 @@ import json
 import math
 import re
 import tomllib
+from contextlib import nullcontext
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -28,8 +29,9 @@ from ..errors import BoardError, SpecError
 from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
-from ..pipeline import FilterResult, can_fork, write_filter
+from ..pipeline import FilterResult, can_fork, output_names, write_filter
 from ..spec import Arc, spec_from_dict
+from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
@@ -294,12 +296,13 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
                         "tracks, so draw the folded route on the board first (or use `build` to get the route)")
     layout = with_copper(layout, traces=board_traces(board, layout, pair))
     estimate = estimate_layout(layout)
-    checks = run_checks(layout, board_context(board, layout, pair, references=references), estimate=estimate)
+    context = board_context(board, layout, pair, references=references)
+    checks = run_checks(layout, context, estimate=estimate)
     texts = texts if texts is not None else BoardTexts(board)
     item = board_footprint_text(layout, texts.version, reference=reference, plane_net=texts.plane_net(spec.plane_net),
                                 zone_priority=zone_priority_for(texts.text(), layout, spec.plane_net, board.name),
                                 design=design)
-    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate), design, item)
+    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate, context), design, item)
 
 
 def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
@@ -337,7 +340,7 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
         if board.stackup is None:
             spec = p.result.layout.spec
             notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
-                         f"stackup.h = {spec.h:g} mm")
+                         f"stackup.h = {format_length(spec.h, spec.units, digits=6)}")
     return Placement(placed, new_text, rules, risks, notes)
 
 
@@ -349,31 +352,35 @@ def _pairs_for(board: Board, requests: list[Request]) -> list[BoardPair]:
     return find_pairs(board, only=wanted) if wanted else []
 
 
+def board_files(board_path: str | Path) -> tuple[Path, Path]:
+    """The files a board job reads: the board and the rules file beside it (which need not exist)."""
+    return Path(board_path), Path(board_path).with_suffix(".kicad_dru")
+
+
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
-          force: bool = False, progress=None) -> Placement:
-    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs."""
-    board_path, out_path = Path(board_path), Path(out_path)
+          force: bool = False, progress=None, inputs=()) -> Placement:
+    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs.
+
+    Nothing is written over the board, its rules, the specs or any other of ``inputs`` (a plan file)."""
+    (board_path, source_rules), out_path = board_files(board_path), Path(out_path)
     if out_path.suffix != ".kicad_pcb":
         raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
-    staged = StagedOutputs(out_path.parent if str(out_path.parent) else Path("."), force=force,
-                           protect=(board_path, board_path.with_suffix(".kicad_dru")))
+    inputs = (board_path, source_rules, *inputs, *(Path(r.source) for r in requests))
+    staged = StagedOutputs(out_path.parent, force=force, inputs=inputs)
+    art = StagedOutputs(artifacts, force=force, inputs=inputs, option="--artifacts") if artifacts else None
     rules_name = out_path.with_suffix(".kicad_dru").name
-    staged.require_free([out_path.name, rules_name])
-    board = read_board(board_path)
-    source_rules = board_path.with_suffix(".kicad_dru")
-    existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
-    placement = plan_placement(board, requests, existing, progress)
-    if artifacts is not None:
-        art = StagedOutputs(artifacts, force=force)
-        art.require_free([f"{p.result.name}/report.json" for p in placement.filters])
-    with staged:
-        with open(staged.path(out_path.name), "w", encoding="utf-8", newline="") as handle:
+    with staged, art if art else nullcontext():
+        staged.require_free([out_path.name, rules_name])
+        board = read_board(board_path)
+        existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
+        placement = plan_placement(board, requests, existing, progress)
+        if art:
+            art.require_free([n for p in placement.filters for n in output_names(p.result.name, p.result.name)])
+        with staged.writing(out_path.name) as path, open(path, "w", encoding="utf-8", newline="") as handle:
             handle.write(placement.board_text)
         staged.write_text(rules_name, placement.rules_text)
-        if artifacts is not None:
-            for p in placement.filters:
-                with StagedOutputs(Path(artifacts) / p.result.name, force=force) as folder:
-                    write_filter(p.result, folder)
+        for p in placement.filters if art else ():
+            write_filter(p.result, art, folder=p.result.name)
     return placement
 
 
