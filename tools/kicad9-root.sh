@@ -203,8 +203,9 @@ carry_apt_config
 phase=$SECONDS
 # Debian 13 has no split package for KiCad's Python module: pcbnew.py and _pcbnew.so are in 'kicad' itself.
 say "installing python3, python3-venv, ca-certificates and kicad"
-in_root apt-get update -qq
-in_root apt-get install -y -qq --no-install-recommends python3 python3-venv ca-certificates kicad >/dev/null
+in_root apt-get update -qq || unavailable "apt-get update in the root failed (mirror $mirror)"
+in_root apt-get install -y -qq --no-install-recommends python3 python3-venv ca-certificates kicad >/dev/null \
+    || unavailable "apt-get could not install KiCad and Python in the root"
 in_root update-ca-certificates >/dev/null
 t_apt=$((SECONDS - phase))
 
