@@ -16,6 +16,19 @@ SAMPLE_SPECS = sorted(SAMPLES.glob("*.toml"))
 DEBIAN_DIST_PACKAGES = "/usr/lib/python3/dist-packages"
 
 
+def pytest_configure(config):
+    config.addinivalue_line(
+        "markers", "kicad: KiCad-backed (uses the pcbnew fixture or lives in test_kicad_*.py); "
+        "tools/kicad9-root.sh runs these again under Debian 13's KiCad with -m kicad")
+
+
+def pytest_collection_modifyitems(items):
+    """Mark every KiCad-backed test, so another KiCad can run exactly that set."""
+    for item in items:
+        if "pcbnew" in getattr(item, "fixturenames", ()) or item.path.name.startswith("test_kicad_"):
+            item.add_marker(pytest.mark.kicad)
+
+
 @pytest.fixture(scope="session")
 def sample_layouts():
     """name -> Layout for every bundled sample spec."""
