@@ -12,7 +12,6 @@ import fnmatch
 import json
 import math
 import re
-import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -29,7 +28,7 @@ from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from
 from ..outputs import StagedOutputs
 from ..path import piece_points
 from ..pipeline import FilterResult, can_fork, write_filter
-from ..spec import Arc, spec_from_dict
+from ..spec import Arc, read_toml, spec_from_dict
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
@@ -70,13 +69,7 @@ class Placement:
 
 
 def load_spec_dict(path: str | Path) -> dict:
-    path = Path(path)
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__})") from None
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
+    return read_toml(path)
 
 
 def load_plan(path: str | Path) -> list[Request]:
@@ -382,7 +375,7 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
             continue
         try:
             design = json.loads(unescape(match.group(1).decode("utf-8")))
-        except (ValueError, UnicodeDecodeError):
+        except (ValueError, UnicodeDecodeError, RecursionError):
             raise BoardError(f"{board.name}: footprint at byte {start} carries an unreadable {DESIGN_PROPERTY}") from None
         found.append((board.footprint(index), design))
     return found
