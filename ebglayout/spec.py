@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from .errors import SpecError
-from .units import LENGTH_UNITS_MM, format_mm, parse_frequency, parse_length
+from .units import LENGTH_UNITS_MM, format_mm, parse_frequency, parse_length, snap
 
 STYLES = ("straight", "folded", "bridged")
 MAX_LENGTH_MM = 1000.0
@@ -23,6 +23,8 @@ MIN_LENGTH_MM = 0.001
 """No etched feature is narrower than 1 um; a smaller length is a unit mistake and would vanish on the 1 nm grid."""
 MAX_PATH_POINTS = 2000
 """Points (and arc items) of a centre-line, an outline or an obstacle track: keeps every check fast."""
+MAX_ARC_RADIUS_MM = 10 * MAX_LENGTH_MM
+"""A flatter arc is a straight line within the grid, and its centre would lie far off the board."""
 MAX_NAME_BYTES = 100
 """Output files are named after the filter; this leaves room for suffixes and staging names within 255 bytes."""
 COPPER_LAYERS = ("F.Cu", *(f"In{k}.Cu" for k in range(1, 31)), "B.Cu")
@@ -444,9 +446,10 @@ def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...
             a, m, b = (reader.point(where, p) for p in item["arc"])
             if current is not None and math.dist(current, a) > 1e-6:
                 raise SpecError(where, item, f"arc must start at the previous point ({current[0]:g}, {current[1]:g})")
-            cross = (m[0] - a[0]) * (b[1] - a[1]) - (m[1] - a[1]) * (b[0] - a[0])
-            if abs(cross) < 1e-9 or math.dist(a, b) < 1e-6:
-                raise SpecError(where, item, "arc points must not be collinear or coincide")
+            if _arc_radius(a, m, b) > MAX_ARC_RADIUS_MM or math.dist(a, b) < 1e-6:
+                raise SpecError(where, item, "arc points must not coincide or lie on one line (on the 1 nm grid, the "
+                                f"circle through them must have a radius of at most {MAX_ARC_RADIUS_MM:g} mm; "
+                                "use a straight segment instead)")
             pieces.append(Arc(a, m, b))
             current = b
         else:
@@ -459,6 +462,15 @@ def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...
     if not pieces:
         raise SpecError(key, raw, "must contain at least one segment")
     return tuple(pieces)
+
+
+def _arc_radius(a: tuple[float, float], m: tuple[float, float], b: tuple[float, float]) -> float:
+    """Radius of the circle through three points as the engine sees them, on the 1 nm grid (inf when collinear)."""
+    (ax, ay), (mx, my), (bx, by) = ((snap(x), snap(y)) for x, y in (a, m, b))
+    cross = (mx - ax) * (by - ay) - (my - ay) * (bx - ax)
+    if cross == 0:
+        return math.inf
+    return math.dist(a, m) * math.dist(m, b) * math.dist(a, b) / (2 * abs(cross))
 
 
 def _parse_layermap(reader: _Reader, key: str, raw: object) -> tuple[tuple[str, int, int], ...]:
