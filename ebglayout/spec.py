@@ -305,7 +305,7 @@ def _flatten(raw: dict, prefix: str = "") -> dict:
             flat[dotted] = val
         else:
             known = [p.key for p in PARAMETERS] + sorted(_GROUPS)
-            close = difflib.get_close_matches(dotted, known, n=1)
+            close = difflib.get_close_matches(dotted, known, n=1) if key else []
             hint = f"did you mean {close[0]!r}?" if close else "see `ebglayout params` for the keys"
             raise SpecError(dotted, val if not isinstance(val, dict) else "{...}", f"unknown key; {hint}")
     return flat

@@ -23,7 +23,7 @@ from shapely.ops import linemerge
 
 from ..checks import CheckReport, run_checks
 from ..checks.rules import CheckContext, RuleResult
-from ..errors import BoardError, SpecError
+from ..errors import BoardError, EbgError, SpecError
 from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
@@ -34,7 +34,7 @@ from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
 from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
 from .rules import merge_rules, rules_text
-from .sexpr import unescape
+from .sexpr import error_at, unescape
 
 
 @dataclass(frozen=True)
@@ -376,7 +376,7 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
         try:
             design = json.loads(unescape(match.group(1).decode("utf-8")))
         except (ValueError, UnicodeDecodeError, RecursionError):
-            raise BoardError(f"{board.name}: footprint at byte {start} carries an unreadable {DESIGN_PROPERTY}") from None
+            raise error_at(board.name, board.data, start, f"footprint carries an unreadable {DESIGN_PROPERTY}") from None
         found.append((board.footprint(index), design))
     return found
 
@@ -488,8 +488,12 @@ def _recheck(job: _Recheck, index: int) -> CheckReport:
     from ..estimate.band import estimate_layout
 
     board, (footprint, design) = job.board, job.designs[index]
-    spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
-    layout = _moved(build_layout(spec), footprint)
+    try:
+        spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
+        layout = _moved(build_layout(spec), footprint)
+    except EbgError as err:
+        raise error_at(board.name, board.data, footprint.span[0], f"footprint {footprint.reference}: its "
+                       f"{DESIGN_PROPERTY} cannot be rebuilt: {err}") from None
     match = [bp for bp in job.pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
     if match:
         pair = max(match, key=lambda bp: bp.length)
