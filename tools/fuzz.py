@@ -31,6 +31,9 @@ SPEC_SOURCES = sorted((ROOT / "samples").glob("*.toml"))
 BOARD_SOURCES = [ROOT / "samples" / "hx2_hub.kicad_pcb", *sorted((ROOT / "tests" / "boards").glob("*.kicad_pcb"))]
 PLACE_SPEC = ROOT / "samples" / "hx2_l0_tx_straight.toml"
 PLACE_PAIR = ("HX2_L0_TX_P", "HX2_L0_TX_N")
+PAIR_OF_BOARD = {"hx2_stripline6.kicad_pcb": ("HX2_L3_RX_DP", "HX2_L3_RX_DN"),
+                 **{f"hx2_v{v}.kicad_pcb": ("HX2_L1_RX_P", "HX2_L1_RX_N") for v in (8, 9, 10)}}
+"""The pair `place` puts a filter under on each source board (the sample hub: PLACE_PAIR)."""
 
 _NUMBER = re.compile(rb"(?<![\w.])-?\d+(?:\.\d+)?(?:[eE][-+]?\d+)?(?![\w.])")
 _STRING = re.compile(rb'"(?:[^"\\\n]|\\.)*"')
@@ -98,16 +101,38 @@ def mutate_spec(rng: random.Random, data: bytes, notes: list[str]) -> bytes:
 
 def mutate_board(rng: random.Random, data: bytes, notes: list[str]) -> bytes:
     """One random change to a board file's bytes."""
-    op = rng.choice(["number", "number", "number", "value", "delete", "duplicate", "nesting", "encoding",
+    op = rng.choice(["number", "item", "item", "item", "value", "delete", "duplicate", "nesting", "encoding",
                      "control", "truncate"])
     notes.append(op)
     if op == "number":
         return _replace_match(rng, data, _NUMBER, NUMBERS)
+    if op == "item":
+        return _mutate_item(rng, data)
     if op == "value":
         return _replace_match(rng, data, rng.choice([_NUMBER, _STRING]), BOARD_VALUES)
     if op == "truncate":
         return data[: rng.randrange(len(data) + 1)]
     return _common_mutation(rng, data, op)
+
+
+BOARD_ITEMS = (b"(segment", b"(arc", b"(via", b"(pad", b"(xy", b"(epsilon_r", b"(thickness", b"(at ",
+               b"(gr_line", b"(gr_arc", b"(net ", b"(layer ", b"ebglayout_spec")
+
+
+def _mutate_item(rng: random.Random, data: bytes) -> bytes:
+    """A number or word inside one of the items the reader turns into geometry (the stored design included)."""
+    lines = data.split(b"\n")
+    head = rng.choice(BOARD_ITEMS)
+    candidates = [i for i, line in enumerate(lines) if head in line]
+    if not candidates:
+        return data
+    i = rng.choice(candidates)
+    if head == b"ebglayout_spec":
+        values = NUMBERS + [b'\\"\\"', b"[]", b"{}", b"true", b'\\"In1/Cu\\"', b"[" * 2000 + b"]" * 2000]
+        lines[i] = _replace_match(rng, lines[i], re.compile(rb"-?\d+(?:\.\d+)?(?:[eE][-+]?\d+)?"), values)
+    else:
+        lines[i] = _replace_match(rng, lines[i], rng.choice([_NUMBER, _NUMBER, _STRING]), NUMBERS + BOARD_VALUES)
+    return b"\n".join(lines)
 
 
 def _common_mutation(rng: random.Random, data: bytes, op: str) -> bytes:
@@ -269,7 +294,8 @@ def run_case(case: Case, work: Path, timeout: float) -> list[Outcome]:
             commands.append(("check-board", ["check", "--board", str(input_file), "--jobs", "1"], [],
                              input_file.name))
         else:
-            commands.append(("place", ["place", str(input_file), "--pair", *PLACE_PAIR, "--spec", str(PLACE_SPEC),
+            pair = PAIR_OF_BOARD.get(case.source.name, PLACE_PAIR)
+            commands.append(("place", ["place", str(input_file), "--pair", *pair, "--spec", str(PLACE_SPEC),
                                        "--out", str(new)], [new, new.with_suffix(".kicad_dru")], None))
     outcomes = []
     for name, argv, outputs, board_file in commands:
@@ -294,7 +320,18 @@ def placed_board(work: Path) -> Path:
     return out
 
 
+def preload() -> None:
+    """Import every module the commands use once, here, so each forked case starts warm."""
+    import importlib
+
+    for name in ("ebglayout.cli", "ebglayout.pipeline", "ebglayout.estimate.band", "ebglayout.export.dxf",
+                 "ebglayout.export.gds", "ebglayout.export.preview", "ebglayout.kicad.workflow",
+                 "ebglayout.kicad.footprint", "ebglayout.kicad.rules", "ebglayout.checks.junit"):
+        importlib.import_module(name)
+
+
 def campaign(specs: int, boards: int, seed: int, timeout: float, work: Path, progress=None) -> list[Outcome]:
+    preload()
     base = placed_board(work) if boards else None
     outcomes = []
     for n, case in enumerate(make_cases(specs, boards, seed, base)):
@@ -330,7 +367,6 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--keep", type=Path, help="write each failing mutant here")
     args = parser.parse_args(argv)
     sys.path.insert(0, str(ROOT))
-    import ebglayout.cli  # noqa: F401  (imported once, before forking)
 
     def progress(n, outcomes):
         if (n + 1) % 100 == 0:
