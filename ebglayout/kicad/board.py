@@ -34,7 +34,7 @@ from shapely.geometry import LineString, MultiPolygon, Polygon
 
 from ..errors import BoardError
 from ..path import piece_points
-from ..spec import Arc
+from ..spec import COPPER_LAYERS, Arc
 from .fields import (ALTERNATE_WORD, CHUNK, KEEP, MASK, MAX_FIELD, SPACES, Distinct, FieldRows, all_blank, block_floats,
                      byte_window, field_texts, first_row_of, index_ranges, prefix8, row_floats, word_patterns)
 from .sexpr import Quoted, Structure, _heads, error_at, scan, unescape
@@ -567,6 +567,9 @@ class _Reader:
             name, kind = str(entry[1]), str(entry[2])
             names[name] = str(entry[3]) if len(entry) > 3 else name
             if kind in COPPER_TYPES and name.endswith(".Cu"):
+                if name not in COPPER_LAYERS:
+                    raise self.fail(start, f"copper layer {name!r} in the layer table is not one of KiCad's F.Cu, "
+                                    "In1.Cu .. In30.Cu, B.Cu")
                 copper.append(name)
         if not copper:
             raise self.fail(start, "the layer table lists no copper layer")
