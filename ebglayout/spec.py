@@ -22,7 +22,9 @@ MAX_LENGTH_MM = 1000.0
 MIN_LENGTH_MM = 0.001
 """No etched feature is narrower than 1 um; a smaller length is a unit mistake and would vanish on the 1 nm grid."""
 MAX_PATH_POINTS = 2000
-"""Points (and arc items) of a centre-line, an outline or an obstacle track: keeps every check fast."""
+"""Points (and arc items) of a centre-line or an obstacle track: keeps every check and writer fast."""
+MAX_OUTLINE_POINTS = 20000
+"""Points of plane.outline, which a board's rounded Edge.Cuts (arcs split to a 0.25 um sagitta) may fill."""
 MAX_ARC_RADIUS_MM = 10 * MAX_LENGTH_MM
 """A flatter arc is a straight line within the grid, and its centre would lie far off the board."""
 MAX_NAME_BYTES = 100
@@ -420,8 +422,8 @@ def _parse_layers(reader: _Reader, key: str, raw: object) -> tuple[str, ...]:
 
 
 def _parse_points(reader: _Reader, key: str, raw: object) -> tuple[tuple[float, float], ...]:
-    if not isinstance(raw, list) or not 3 <= len(raw) <= MAX_PATH_POINTS:
-        raise SpecError(key, raw, f"must be a polygon of 3 to {MAX_PATH_POINTS} points [[x,y],...]")
+    if not isinstance(raw, list) or not 3 <= len(raw) <= MAX_OUTLINE_POINTS:
+        raise SpecError(key, raw, f"must be a polygon of 3 to {MAX_OUTLINE_POINTS} points [[x,y],...]")
     points = tuple(reader.point(f"{key}[{i}]", p) for i, p in enumerate(raw))
     import shapely
 
