@@ -23,6 +23,7 @@ from .fold import Turn, fold
 from .path import offset_pieces, polyline_of, validate_centre_line
 from .placement import place_row
 from .spec import Arc, FilterSpec, Line
+from .stackup import Stackup, stackup_of
 from .units import GRID_MM, on_grid
 
 ROLES = ("slot", "patch", "bridge", "outline")
@@ -103,6 +104,11 @@ class Layout:
 
     def full_crossings(self, layer: str, polarity: str) -> list[Crossing]:
         return [c for c in self.crossings if c.layer == layer and c.polarity == polarity and c.kind == "full"]
+
+    @property
+    def stackup(self) -> Stackup:
+        """The dielectrics around each cut plane, for the physics readers."""
+        return stackup_of(self.spec)
 
 
 def as_multipolygon(geom) -> MultiPolygon:
@@ -200,10 +206,10 @@ def route_length_difference(layout: Layout) -> float:
 def effective_permittivity(spec: FilterSpec) -> float:
     """Permittivity that sets the delay of the traces: er for stripline, a rough microstrip value otherwise.
 
-    Microstrip: (er + 1) / 2 is the thin-strip limit of the quasi-static
+    Uses the pair's dielectric (stackup.pair_er).  Microstrip: (er + 1) / 2 is the thin-strip limit of the quasi-static
     effective permittivity (Hammerstad and Jensen, 1980; value from memory).
     """
-    return spec.er if len(spec.plane_layers) == 2 else (spec.er + 1) / 2
+    return spec.pair_er if len(spec.plane_layers) == 2 else (spec.pair_er + 1) / 2
 
 
 def skew_ps(length_mm: float, er_eff: float) -> float:

@@ -74,8 +74,15 @@ PARAMETERS: tuple[Parameter, ...] = (
     Parameter("cut.bridge.width", "length", None, "bridged: width of each bridge"),
     Parameter("cut.bridge.length", "length", None, "bridged: length of each bridge (>= slot; longer pockets the patch)"),
     Parameter("cut.bridge.per_side", "int", 1, "bridged: bridges on each side the pair does not cross"),
-    Parameter("stackup.er", "number", REQUIRED, "relative permittivity of the dielectric between the cut plane and the next plane"),
-    Parameter("stackup.h", "length", REQUIRED, "thickness of that dielectric"),
+    Parameter("stackup.er", "number", REQUIRED, "relative permittivity of the cavity dielectric: between each cut plane "
+              "and the next plane beyond it, away from the pair (also for stripline)"),
+    Parameter("stackup.h", "length", REQUIRED, "thickness of that cavity dielectric"),
+    Parameter("stackup.pair_h", "heights", None, "dielectric thickness between the pair and each cut plane: one length, "
+              "or one per entry of plane.layers in that order (default stackup.h)"),
+    Parameter("stackup.pair_er", "number", None, "relative permittivity of the dielectric around the pair "
+              "(default stackup.er)"),
+    Parameter("stackup.tan_d", "number", 0.02, "loss tangent of all dielectrics (0.02: common practice for "
+              "FR-4-class laminates at GHz)"),
     Parameter("stackup.er_tolerance", "number", 0.05, "relative tolerance of er for the estimate sweep (0.05 = +-5 %)"),
     Parameter("stackup.h_tolerance", "number", 0.10, "relative tolerance of h for the estimate sweep (0.10 = +-10 %)"),
     Parameter("rules.min_slot", "length", 0.1, "least slot width the fab can etch"),
@@ -155,6 +162,9 @@ class FilterSpec:
     bridges_per_side: int
     er: float
     h: float
+    pair_h: tuple[float, ...]
+    pair_er: float
+    tan_d: float
     er_tolerance: float
     h_tolerance: float
     min_slot: float
@@ -172,6 +182,8 @@ class FilterSpec:
     gds_layers: tuple[tuple[str, int, int], ...] = ()
     track_obstacles: tuple[TrackObstacle, ...] = ()
     via_obstacles: tuple[ViaObstacle, ...] = ()
+    units: str = field(default="mm", compare=False)
+    """The spec file's length unit: every length shown to the user is written in it (lengths inside stay mm)."""
     echo: dict = field(default_factory=dict, compare=False, hash=False)
 
     @property
@@ -231,7 +243,7 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
     pair_width, pair_spacing = value("pair.width"), value("pair.spacing")
     style = value("cut.style")
     patches = _cell_sizes(reader)
-    h = value("stackup.h")
+    h, er = value("stackup.h"), value("stackup.er")
     spec = FilterSpec(
         name=_file_name(value("name") or default_name),
         pair_width=pair_width,
@@ -253,8 +265,11 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
         bridge_width=value("cut.bridge.width"),
         bridge_length=value("cut.bridge.length"),
         bridges_per_side=value("cut.bridge.per_side"),
-        er=value("stackup.er"),
+        er=er,
         h=h,
+        pair_h=_pair_heights(reader, h),
+        pair_er=value("stackup.pair_er") if flat.get("stackup.pair_er") is not None else er,
+        tan_d=value("stackup.tan_d"),
         er_tolerance=value("stackup.er_tolerance"),
         h_tolerance=value("stackup.h_tolerance"),
         min_slot=value("rules.min_slot"),
@@ -272,6 +287,7 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
         gds_layers=value("gds"),
         track_obstacles=value("obstacles.tracks"),
         via_obstacles=value("obstacles.vias"),
+        units=units.lower(),
         echo=raw,
     )
     turn = value("cut.turn_clearance") if flat.get("cut.turn_clearance") is not None else spec.lane_pitch
@@ -366,6 +382,8 @@ def _parse_length(reader: _Reader, key: str, raw: object) -> float:
 def _parse_number(reader: _Reader, key: str, raw: object) -> float:
     limits = {
         "stackup.er": (1.0, 30.0, "between 1 and 30"),
+        "stackup.pair_er": (1.0, 30.0, "between 1 and 30"),
+        "stackup.tan_d": (0.0, 0.2, "between 0 and 0.2"),
         "stackup.er_tolerance": (0.0, 0.5, "between 0 and 0.5"),
         "stackup.h_tolerance": (0.0, 0.5, "between 0 and 0.5"),
         "rules.min_angle": (0.0, 90.0, "between 0 and 90 degrees"),
@@ -419,6 +437,28 @@ def _parse_layers(reader: _Reader, key: str, raw: object) -> tuple[str, ...]:
     if not isinstance(raw, list) or not 1 <= len(raw) <= 2 or len({str(n) for n in raw}) != len(raw):
         raise SpecError(key, raw, "must be one or two different layer names, e.g. [\"In1.Cu\"] or [\"In1.Cu\", \"In2.Cu\"]")
     return tuple(_parse_layer(reader, f"{key}[{i}]", name) for i, name in enumerate(raw))
+
+
+def _parse_heights(reader: _Reader, key: str, raw: object) -> tuple[float, ...]:
+    if isinstance(raw, list):
+        if not 1 <= len(raw) <= 2:
+            raise SpecError(key, raw, "must be one length, or one length per entry of plane.layers")
+        return tuple(reader.length(f"{key}[{i}]", item) for i, item in enumerate(raw))
+    return (reader.length(key, raw),)
+
+
+def _pair_heights(reader: _Reader, h: float) -> tuple[float, ...]:
+    """stackup.pair_h as one value per plane layer; a single value applies to every plane."""
+    planes = len(reader.value("plane.layers"))
+    given = reader.value("stackup.pair_h")
+    if given is None:
+        return (h,) * planes
+    if len(given) == 1:
+        return given * planes
+    if len(given) != planes:
+        raise SpecError("stackup.pair_h", reader.flat["stackup.pair_h"],
+                        f"must give one length, or one per entry of plane.layers ({planes})")
+    return given
 
 
 def _parse_points(reader: _Reader, key: str, raw: object) -> tuple[tuple[float, float], ...]:
@@ -519,7 +559,8 @@ def _parse_vias(reader: _Reader, key: str, raw: object) -> tuple[ViaObstacle, ..
 _PARSERS: dict[str, Callable[[_Reader, str, object], Any]] = {
     "text": _parse_text, "length": _parse_length, "number": _parse_number, "int": _parse_int,
     "choice": _parse_choice, "frequency": _parse_frequency, "size": _parse_size, "sizes": _parse_sizes,
-    "nets": _parse_nets, "layer": _parse_layer, "layers": _parse_layers, "points": _parse_points, "path": _parse_path,
+    "nets": _parse_nets, "layer": _parse_layer, "layers": _parse_layers, "heights": _parse_heights,
+    "points": _parse_points, "path": _parse_path,
     "layermap": _parse_layermap, "tracks": _parse_tracks, "vias": _parse_vias,
 }
 
