@@ -365,6 +365,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--timeout", type=float, default=20.0, help="seconds per command")
     parser.add_argument("--keep", type=Path, help="write each failing mutant here")
+    parser.add_argument("--messages", type=Path, help="write every distinct exit-2 error line here, for review")
     args = parser.parse_args(argv)
     sys.path.insert(0, str(ROOT))
 
@@ -383,6 +384,9 @@ def main(argv: list[str] | None = None) -> int:
                 args.keep.mkdir(parents=True, exist_ok=True)
                 suffix = ".toml" if o.case.kind == "spec" else ".kicad_pcb"
                 (args.keep / f"{o.case.kind}{o.case.index}{suffix}").write_bytes(o.case.data)
+    if args.messages:
+        lines = sorted({o.stderr.strip() for o in outcomes if o.code == 2})
+        args.messages.write_text("\n".join(f"{o}" for o in lines) + "\n", encoding="utf-8")
     print(summary(outcomes))
     return 1 if any(o.problems for o in outcomes) else 0
 
