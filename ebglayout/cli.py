@@ -136,8 +136,8 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as err:  # a bug, not bad input: one line, the traceback only with --debug
         if getattr(args, "debug", False):
             raise
-        print(f"ebglayout: internal error: {err.__class__.__name__}: {one_line(str(err))} (rerun with --debug for a traceback "
-              "and report it)", file=sys.stderr)
+        print(f"ebglayout: internal error: {err.__class__.__name__}: {one_line(str(err))} (rerun with --debug for a "
+              "traceback and report it)", file=sys.stderr)
         return 3
 
 

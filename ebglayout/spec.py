@@ -220,7 +220,8 @@ def read_toml(path: str | Path) -> dict:
             raise SpecError("spec", path.name, f"is {len(data)} bytes; a spec may be at most {MAX_TOML_BYTES} bytes")
         text = data.decode("utf-8-sig")
     except OSError as err:
-        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__}: {err.strerror or err})") from None
+        raise SpecError("spec", str(path),
+                        f"cannot be read ({err.__class__.__name__}: {err.strerror or err})") from None
     except UnicodeDecodeError as err:
         raise SpecError("spec", path.name, f"is not UTF-8 text (byte {err.start}: {err.reason})") from None
     try:

@@ -77,7 +77,8 @@ def parse_frequency(value: object, key: str) -> float:
         match = _NUMBER_WITH_UNIT.match(value)
         unit = match.group(2).lower() if match else ""
         if not match or not (unit in FREQUENCY_UNITS_HZ or unit in RATE_UNITS_BPS):
-            raise SpecError(key, value, "must be a frequency (Hz, kHz, MHz, GHz, THz) or a data rate (Mbps, Gbps, Tbps, GT/s)")
+            raise SpecError(key, value,
+                            "must be a frequency (Hz, kHz, MHz, GHz, THz) or a data rate (Mbps, Gbps, Tbps, GT/s)")
         number = float(match.group(1))
         hz = number * (FREQUENCY_UNITS_HZ.get(unit) or RATE_UNITS_BPS[unit])
     else:

@@ -197,7 +197,8 @@ ZIGZAG = "[[0, 0], [20, 0]" + "".join(f", [{20 + 0.01 * k:.2f}, {0.01 * (k % 2) 
                                      for k in range(1, 1999)) + "]"
 """A pair path zig-zagging in 0.01 mm steps: its traces would overlap themselves (GEOS took 12 s to buffer them)."""
 FUZZ_CASES = [
-    ("TOML nested 1000 deep", GOOD + "\n[plane]\nnet = " + "[" * 1000 + "]" * 1000 + "\n", "nests arrays or tables too deeply"),
+    ("TOML nested 1000 deep", GOOD + "\n[plane]\nnet = " + "[" * 1000 + "]" * 1000 + "\n",
+     "nests arrays or tables too deeply"),
     ("slot 1e-9", variant("slot = 0.15", "slot = 1e-9"), "cut.slot = 1e-09: must be from 0.001 mm (1 um)"),
     ("self-crossing outline", GOOD + "\n[plane]\noutline = [[0, -5], [30, 5], [30, -5], [0, 5]]\n",
      "plane.outline = 4 points: must be a simple polygon that does not cross itself"),
@@ -244,7 +245,8 @@ def test_fuzz_findings_exit_2_in_check_and_build_alike(tmp_path, capsys, text, w
 @pytest.mark.parametrize("text, words", [
     ('name = "' + "long-" * 40 + '"\n' + GOOD, "..."),
     (GOOD.replace("[stackup]", '[stackup]\n"" = 1'), 'stackup."" (the empty key) = 1: unknown key'),
-    (GOOD.replace("width = 0.1", 'width = "0.1\\u001b[31m"'), "pair.width = 0.1\\x1b[31m: must be a number with a length unit"),
+    (GOOD.replace("width = 0.1", 'width = "0.1\\u001b[31m"'),
+     "pair.width = 0.1\\x1b[31m: must be a number with a length unit"),
 ])
 def test_messages_stay_one_readable_line(tmp_path, capsys, text, words):
     """Control characters are escaped, long values shortened with an ellipsis, the empty key named."""
@@ -283,7 +285,8 @@ def _hub_line(text: str, needle: str) -> int:
     ("(epsilon_r 4.1)", "(epsilon_r inf)", '"dielectric 1"',
      "stack-up layer 'dielectric 1': (epsilon_r inf) must be a number from 1 to 100"),
     ("(epsilon_r 4.1)", "(epsilon_r nan)", '"dielectric 1"', "stack-up layer 'dielectric 1': (epsilon_r nan)"),
-    ('"dielectric 1" (type "prepreg") (thickness 0.1)', '"dielectric 1" (type "prepreg") (thickness 0)', '"dielectric 1"',
+    ('"dielectric 1" (type "prepreg") (thickness 0.1)', '"dielectric 1" (type "prepreg") (thickness 0)',
+     '"dielectric 1"',
      "stack-up layer 'dielectric 1': (thickness 0) must be a number > 0"),
     ("(end 110 90.135) (width 0.12)", "(end 110 90.135) (width 0)", "(segment", "(width 0) must be > 0"),
     ("(end 110 90.135) (width 0.12)", "(end 110 90.135) (width -0.12)", "(segment", "(width -0.12) must be > 0"),

@@ -51,7 +51,8 @@ BOARD_VALUES = [b"nan", b"inf", b"-inf", b"1e308", b"1e15", b"0", b"-0.2", b"abc
                 b'"In1.Cu"', b'"*.Cu"', b'"a\\nb"', b"1e-9"]
 TOML_SPECIALS = [
     (b"slot = ", b"slot = 1e-9 #"), (b"slot = ", b"slot = 0.0004 #"), (b"[rules]", b"[rules]\nmin_slot = 0.0001"),
-    (b"width = ", b"width = 1e-7 #"), (b"width = ", b"width = 1e-9 #"), (b"\nlayers = ", b'\nlayers = ["in1.cu", "In1.Cu"] #'),
+    (b"width = ", b"width = 1e-7 #"), (b"width = ", b"width = 1e-9 #"),
+    (b"\nlayers = ", b'\nlayers = ["in1.cu", "In1.Cu"] #'),
     (b"\nname = ", b'\nname = "' + b"n" * 255 + b'" #'), (b"\nname = ", b'\nname = "a\\nb" #'),
     (b"\nname = ", b'\nname = "a\\u0000b" #'), (b'target = ', b'target = "1THz" #'),
     (b"[stackup]", b"[stackup]\n\"\" = 1"), (b"[plane]", b"[plane]\noutline = [[0, -5], [30, 5], [30, -5], [0, 5]]"),

@@ -666,7 +666,8 @@ class _Reader:
                 where = self.data.find(b'"' + name.encode("utf-8") + b'"', setup[0][1])
                 parts = [(self._dielectric_value(["x", *g], "thickness", name, where),
                           self._dielectric_value(["x", *g], "epsilon_r", name, where),
-                          _num(["x", *g], "loss_tangent"), str(_atom(["x", *g], "material", default=""))) for g in groups]
+                          _num(["x", *g], "loss_tangent"), str(_atom(["x", *g], "material", default="")))
+                         for g in groups]
                 h = None if any(p[0] is None for p in parts) else sum(p[0] for p in parts)
                 er = h / sum(p[0] / p[1] for p in parts) if h and all(p[1] for p in parts) else None
                 if er is None:
@@ -684,7 +685,8 @@ class _Reader:
         if value is None:
             return None
         if head == "thickness":
-            usable, allowed = _is_number(value) and 0 < float(value) <= MAX_SIZE_MM, f"> 0 and at most {MAX_SIZE_MM:g} mm"
+            usable = _is_number(value) and 0 < float(value) <= MAX_SIZE_MM
+            allowed = f"> 0 and at most {MAX_SIZE_MM:g} mm"
         else:
             usable, allowed = _is_number(value) and 1 <= float(value) <= 100, "from 1 to 100"
         if not usable:

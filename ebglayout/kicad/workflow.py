@@ -390,7 +390,8 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
         try:
             design = json.loads(unescape(match.group(1).decode("utf-8")))
         except (ValueError, UnicodeDecodeError, RecursionError):
-            raise error_at(board.name, board.data, start, f"footprint carries an unreadable {DESIGN_PROPERTY}") from None
+            raise error_at(board.name, board.data, start,
+                           f"footprint carries an unreadable {DESIGN_PROPERTY}") from None
         found.append((board.footprint(index), design))
     return found
 
