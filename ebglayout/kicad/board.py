@@ -32,7 +32,7 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString, MultiPolygon, Polygon
 
-from ..errors import BoardError
+from ..errors import BoardError, show
 from ..path import piece_points
 from ..spec import COPPER_LAYERS, Arc
 from .fields import (ALTERNATE_WORD, CHUNK, KEEP, MASK, MAX_FIELD, SPACES, Distinct, FieldRows, all_blank, block_floats,
@@ -579,7 +579,7 @@ class _Reader:
         copper, names = [], {}
         for entry in node[1:]:
             if not isinstance(entry, list) or len(entry) < 3:
-                raise self.fail(start, f"bad entry in the layer table: {_show(entry)}")
+                raise self.fail(start, f"bad entry in the layer table: {show(entry)}")
             name, kind = str(entry[1]), str(entry[2])
             names[name] = str(entry[3]) if len(entry) > 3 else name
             if kind in COPPER_TYPES and name.endswith(".Cu"):
@@ -596,7 +596,7 @@ class _Reader:
         nets, codes, codes_by_name = [""], {0: 0}, {"": 0}
         for node, start in self._net_declarations():
             if len(node) < 3:
-                raise self.fail(start, f"bad net declaration {_show(node)}: expected (net CODE \"NAME\")")
+                raise self.fail(start, f"bad net declaration {show(node)}: expected (net CODE \"NAME\")")
             try:
                 code = int(node[1])
             except ValueError:
@@ -1459,11 +1459,6 @@ def _atom_text(token: bytes) -> str:
 def _text(token: bytes) -> str:
     text = token.decode("utf-8")
     return unescape(text[1:-1]) if text[:1] == '"' else text
-
-
-def _show(node) -> str:
-    text = repr(node)
-    return text if len(text) < 60 else text[:57] + "..."
 
 
 def _via_kind(words: bytes) -> str:
