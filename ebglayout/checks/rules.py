@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 from shapely.affinity import affine_transform
-from shapely.geometry import LineString, Polygon
+from shapely.geometry import Polygon
 from shapely.ops import unary_union
 
 from ..crossing import Crossing
