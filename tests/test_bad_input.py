@@ -340,3 +340,19 @@ def test_check_board_names_the_footprint_of_a_broken_stored_design(tmp_path, cap
     assert err.startswith("ebglayout: error: broken.kicad_pcb: line ") and "footprint FIL1" in err, err
     assert line is None or f"line {line}," in err, err
     assert "pair.path[2]" in err and "\n" not in err
+
+
+def test_placed_filter_names_stay_within_the_name_limit():
+    """A long hierarchical net name must not make `place` refuse its own filter name (spec.MAX_NAME_BYTES)."""
+    from ebglayout.kicad.workflow import _filter_name
+    from ebglayout.spec import MAX_NAME_BYTES, spec_from_dict
+
+    base = "/Top/Very_Long_Hierarchical_Sheet_Name/Another_Level/HX2_LANE0_TRANSMIT_DIFFERENTIAL"
+    names = {_filter_name(base + tail, {}, "hx2_l0_tx_straight_with_a_long_name.toml") for tail in ("_A", "_B")}
+    assert len(names) == 2 and all(len(n.encode()) <= MAX_NAME_BYTES for n in names)
+    import tomllib
+
+    raw = tomllib.loads(GOOD)
+    raw["name"] = names.pop()
+    assert spec_from_dict(raw).name == raw["name"]
+    assert _filter_name("HX2_L0_TX", {}, "hx2_l0_tx_straight.toml") == "HX2_L0_TX_hx2_l0_tx_straight"

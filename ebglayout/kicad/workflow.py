@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import bisect
 import fnmatch
+import hashlib
 import json
 import math
 import re
@@ -29,7 +30,7 @@ from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
 from ..pipeline import FilterResult, can_fork, output_names, write_filter
-from ..spec import Arc, read_toml, spec_from_dict
+from ..spec import MAX_NAME_BYTES, Arc, read_toml, spec_from_dict
 from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
@@ -266,7 +267,10 @@ def _next_reference(board: Board, taken: set[str]) -> str:
 def _filter_name(base: str, spec: dict, source: str) -> str:
     stem = str(spec.get("name") or Path(source).stem)
     text = f"{base}_{stem}" if base not in stem else stem
-    return re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
+    name = re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
+    if len(name) > MAX_NAME_BYTES:  # long hierarchical net names: keep the name a file name, and distinct
+        name = name[: MAX_NAME_BYTES - 9] + "_" + hashlib.sha256(name.encode()).hexdigest()[:8]
+    return name
 
 
 def build_on_board(board: Board, request: Request, pair: BoardPair, reference: str, texts: BoardTexts | None = None,
