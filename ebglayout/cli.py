@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from . import __version__
-from .errors import EbgError
+from .errors import EbgError, one_line
 from .units import LENGTH_UNITS_MM
 
 EXAMPLES = {
@@ -122,7 +122,7 @@ def main(argv: list[str] | None = None) -> int:
     except EbgError as err:
         if getattr(args, "debug", False):
             raise
-        print(f"ebglayout: error: {err}", file=sys.stderr)
+        print(f"ebglayout: error: {one_line(str(err))}", file=sys.stderr)
         return 2
     except BrokenPipeError:
         sys.stderr.close()
@@ -139,8 +139,8 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as err:  # a bug, not bad input: one line, the traceback only with --debug
         if getattr(args, "debug", False):
             raise
-        print(f"ebglayout: internal error: {err.__class__.__name__}: {err} (rerun with --debug for a traceback "
-              "and report it)", file=sys.stderr)
+        print(f"ebglayout: internal error: {err.__class__.__name__}: {one_line(str(err))} (rerun with --debug for a "
+              "traceback and report it)", file=sys.stderr)
         return 3
 
 

@@ -18,7 +18,7 @@ class SpecError(EbgError):
 
     def __init__(self, key: str, value: object, allowed: str):
         self.key, self.value, self.allowed = key, value, allowed
-        super().__init__(f"{key} = {_show(value)}: {allowed}")
+        super().__init__(f"{show_key(key)} = {show(value)}: {allowed}")
 
 
 class PlacementError(EbgError):
@@ -35,10 +35,35 @@ def located(err: EbgError, where: str) -> EbgError:
     return err
 
 
-def _show(value: object) -> str:
+SHOWN_CHARS = 60
+"""Values longer than this are shortened with an ellipsis, so an error stays one readable line."""
+
+
+def show(value: object) -> str:
+    """A value as one short line: control characters escaped, long text shortened."""
     if isinstance(value, str):
-        return value if value else '""'
+        return shorten(one_line(value)) if value else '""'
     if isinstance(value, float):
         return f"{value:g}"
-    text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
+    try:
+        text = repr(value)
+    except RecursionError:
+        text = f"<{type(value).__name__} nested too deeply>"
+    return shorten(one_line(text))
+
+
+def show_key(key: str) -> str:
+    """A dotted key as TOML spells it, with an empty part written as "" and named."""
+    parts = key.split(".")
+    if all(parts):
+        return shorten(one_line(key), 2 * SHOWN_CHARS)
+    return ".".join(one_line(p) if p else '""' for p in parts) + " (the empty key)"
+
+
+def one_line(text: str) -> str:
+    """``text`` with every control character (newline, NUL, escape, ...) written as a visible escape."""
+    return "".join(c if c.isprintable() or c == " " else c.encode("unicode_escape").decode("ascii") for c in text)
+
+
+def shorten(text: str, limit: int = SHOWN_CHARS) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."

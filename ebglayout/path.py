@@ -175,6 +175,10 @@ def validate_centre_line(pieces: tuple[Line | Arc, ...], offset: float, width: f
         if isinstance(piece, Arc) and arc_geometry(piece).radius <= offset + width / 2:
             raise SpecError(f"pair.path[{k}]", f"arc radius {arc_geometry(piece).radius:g} mm",
                             f"must exceed the pair's half width ({offset + width / 2:g} mm) so the inner trace can follow it")
+    for side in (1.0, -1.0):
+        if not offset_pieces(pieces, side * offset).is_simple:
+            raise SpecError("pair.path", f"{len(pieces)} pieces", f"bends too tightly for the pair: a trace "
+                            f"{offset:g} mm beside it would cross itself (make pieces longer than the pair is wide)")
     return line
 
 

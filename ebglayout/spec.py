@@ -14,11 +14,23 @@ from pathlib import Path
 from typing import Any, Callable
 
 from .errors import SpecError
-from .units import LENGTH_UNITS_MM, format_mm, parse_frequency, parse_length
+from .units import LENGTH_UNITS_MM, format_mm, parse_frequency, parse_length, snap
 
 STYLES = ("straight", "folded", "bridged")
 MAX_LENGTH_MM = 1000.0
 """No board dimension is larger than a metre; anything beyond is a unit mistake."""
+MIN_LENGTH_MM = 0.001
+"""No etched feature is narrower than 1 um; a smaller length is a unit mistake and would vanish on the 1 nm grid."""
+MAX_PATH_POINTS = 2000
+"""Points (and arc items) of a centre-line or an obstacle track: keeps every check and writer fast."""
+MAX_OUTLINE_POINTS = 20000
+"""Points of plane.outline, which a board's rounded Edge.Cuts (arcs split to a 0.25 um sagitta) may fill."""
+MAX_ARC_RADIUS_MM = 10 * MAX_LENGTH_MM
+"""A flatter arc is a straight line within the grid, and its centre would lie far off the board."""
+MAX_NAME_BYTES = 100
+"""Output files are named after the filter; this leaves room for suffixes and staging names within 255 bytes."""
+COPPER_LAYERS = ("F.Cu", *(f"In{k}.Cu" for k in range(1, 31)), "B.Cu")
+"""KiCad's copper layer names, spelled as KiCad spells them."""
 
 REQUIRED = object()
 
@@ -35,13 +47,13 @@ class Parameter:
 
 PARAMETERS: tuple[Parameter, ...] = (
     Parameter("name", "text", None, "filter name used for output files (default: the spec file's stem)"),
-    Parameter("units", "text", "mm", "unit of bare numbers: mm, um, mil, thou, in, cm"),
+    Parameter("units", "text", "mm", "unit of bare numbers: mm, um, nm, mil, thou, in, cm"),
     Parameter("target", "frequency", None, "notch target: a frequency (\"8GHz\") or an NRZ data rate "
               "(\"16Gbps\" targets 16 GHz, the second harmonic of the 8 GHz fundamental)"),
     Parameter("pair.width", "length", REQUIRED, "width of each trace"),
     Parameter("pair.spacing", "length", REQUIRED, "edge-to-edge gap between the two traces"),
     Parameter("pair.path", "path", REQUIRED, "centre-line: [[x,y],...] with {arc=[[x1,y1],[xm,ym],[x2,y2]]} items for arcs"),
-    Parameter("pair.layer", "text", "F.Cu", "copper layer the pair is routed on"),
+    Parameter("pair.layer", "layer", "F.Cu", "copper layer the pair is routed on: F.Cu, In1.Cu .. In30.Cu or B.Cu"),
     Parameter("pair.nets", "nets", ("P", "N"), "net names [positive, negative]; the positive trace runs on the left of the path"),
     Parameter("plane.layers", "layers", ("In1.Cu",), "plane layer(s) that get the cut; two layers = stripline, same cut in both"),
     Parameter("plane.net", "text", "GND", "net of the reference plane"),
@@ -194,15 +206,32 @@ class FilterSpec:
 def load_spec(path: str | Path) -> FilterSpec:
     """Read and validate a spec file; raise SpecError with a one-line message on any problem."""
     path = Path(path)
+    return spec_from_dict(read_toml(path), default_name=path.stem)
+
+
+MAX_TOML_BYTES = 16 * 2**20
+"""A spec or plan larger than this is not a spec; refusing it keeps every command within seconds."""
+
+
+def read_toml(path: str | Path) -> dict:
+    """Parse a UTF-8 TOML file (a leading byte-order mark is accepted); any problem is a one-line SpecError."""
+    path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__}: {err})") from None
+        data = path.read_bytes()
+        if len(data) > MAX_TOML_BYTES:
+            raise SpecError("spec", path.name, f"is {len(data)} bytes; a spec may be at most {MAX_TOML_BYTES} bytes")
+        text = data.decode("utf-8-sig")
+    except OSError as err:
+        raise SpecError("spec", str(path),
+                        f"cannot be read ({err.__class__.__name__}: {err.strerror or err})") from None
+    except UnicodeDecodeError as err:
+        raise SpecError("spec", path.name, f"is not UTF-8 text (byte {err.start}: {err.reason})") from None
     try:
-        raw = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
-    return spec_from_dict(raw, default_name=path.stem)
+    except RecursionError:
+        raise SpecError("spec", path.name, "nests arrays or tables too deeply to be a spec") from None
 
 
 def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
@@ -277,8 +306,10 @@ def _replace(spec: FilterSpec, **changes) -> FilterSpec:
 
 
 def _file_name(name: object) -> str:
-    if not isinstance(name, str) or not name or any(c in name for c in '/\\:*?"<>|') or name.startswith("."):
-        raise SpecError("name", name, "must be a plain file name (no path separators, no leading dot)")
+    if (not isinstance(name, str) or not name or any(c in name for c in '/\\:*?"<>|') or name.startswith(".")
+            or not name.isprintable() or name != name.strip() or len(name.encode("utf-8")) > MAX_NAME_BYTES):
+        raise SpecError("name", name, "must be a plain file name: printable, no path separators, no leading dot or "
+                        f"surrounding spaces, at most {MAX_NAME_BYTES} bytes as UTF-8")
     return name
 
 
@@ -295,7 +326,7 @@ def _flatten(raw: dict, prefix: str = "") -> dict:
             flat[dotted] = val
         else:
             known = [p.key for p in PARAMETERS] + sorted(_GROUPS)
-            close = difflib.get_close_matches(dotted, known, n=1)
+            close = difflib.get_close_matches(dotted, known, n=1) if key else []
             hint = f"did you mean {close[0]!r}?" if close else "see `ebglayout params` for the keys"
             raise SpecError(dotted, val if not isinstance(val, dict) else "{...}", f"unknown key; {hint}")
     return flat
@@ -315,11 +346,12 @@ class _Reader:
             return param.default
         return _PARSERS[param.kind](self, key, self.flat[key])
 
-    def length(self, key: str, raw: object, low: float = 0.0, allow_zero: bool = False) -> float:
+    def length(self, key: str, raw: object, allow_zero: bool = False) -> float:
         mm = parse_length(raw, key, self.units)
-        if mm < low or (mm == low and not allow_zero) or mm > MAX_LENGTH_MM:
-            bound = ">= 0" if allow_zero else "> 0"
-            raise SpecError(key, raw, f"must be {bound} and at most {MAX_LENGTH_MM:g} mm (got {format_mm(mm)})")
+        if not (MIN_LENGTH_MM <= mm <= MAX_LENGTH_MM or (allow_zero and mm == 0)):
+            bound = "0 or from" if allow_zero else "from"
+            raise SpecError(key, raw, f"must be {bound} {MIN_LENGTH_MM:g} mm (1 um) to {MAX_LENGTH_MM:g} mm "
+                            f"(got {format_mm(mm)})")
         return mm
 
     def point(self, key: str, raw: object) -> tuple[float, float]:
@@ -332,8 +364,15 @@ class _Reader:
 
 
 def _parse_text(reader: _Reader, key: str, raw: object) -> str:
-    if not isinstance(raw, str) or not raw.strip():
-        raise SpecError(key, raw, "must be a non-empty string")
+    if not isinstance(raw, str) or not raw.strip() or not raw.isprintable():
+        raise SpecError(key, raw, "must be a non-empty string of printable characters")
+    return raw
+
+
+def _parse_layer(reader: _Reader, key: str, raw: object) -> str:
+    if raw not in COPPER_LAYERS:
+        raise SpecError(key, raw, "must be a KiCad copper layer name: F.Cu, In1.Cu .. In30.Cu or B.Cu (as KiCad "
+                        "spells them)")
     return raw
 
 
@@ -398,10 +437,9 @@ def _parse_nets(reader: _Reader, key: str, raw: object) -> tuple[str, str]:
 
 
 def _parse_layers(reader: _Reader, key: str, raw: object) -> tuple[str, ...]:
-    if (not isinstance(raw, list) or not 1 <= len(raw) <= 2 or not all(isinstance(n, str) and n for n in raw)
-            or len(set(raw)) != len(raw)):
+    if not isinstance(raw, list) or not 1 <= len(raw) <= 2 or len({str(n) for n in raw}) != len(raw):
         raise SpecError(key, raw, "must be one or two different layer names, e.g. [\"In1.Cu\"] or [\"In1.Cu\", \"In2.Cu\"]")
-    return tuple(raw)
+    return tuple(_parse_layer(reader, f"{key}[{i}]", name) for i, name in enumerate(raw))
 
 
 def _parse_heights(reader: _Reader, key: str, raw: object) -> tuple[float, ...]:
@@ -427,15 +465,22 @@ def _pair_heights(reader: _Reader, h: float) -> tuple[float, ...]:
 
 
 def _parse_points(reader: _Reader, key: str, raw: object) -> tuple[tuple[float, float], ...]:
-    if not isinstance(raw, list) or len(raw) < 3:
-        raise SpecError(key, raw, "must be a polygon of at least 3 points [[x,y],...]")
-    return tuple(reader.point(f"{key}[{i}]", p) for i, p in enumerate(raw))
+    if not isinstance(raw, list) or not 3 <= len(raw) <= MAX_OUTLINE_POINTS:
+        raise SpecError(key, raw, f"must be a polygon of 3 to {MAX_OUTLINE_POINTS} points [[x,y],...]")
+    points = tuple(reader.point(f"{key}[{i}]", p) for i, p in enumerate(raw))
+    import shapely
+
+    polygon = shapely.Polygon(points)
+    if not polygon.is_valid or polygon.area <= 0:
+        reason = shapely.is_valid_reason(polygon)
+        raise SpecError(key, f"{len(points)} points", f"must be a simple polygon that does not cross itself ({reason})")
+    return points
 
 
 def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...]:
     """Centre-line items: points continue the polyline; an arc item starts at the current point."""
-    if not isinstance(raw, list) or len(raw) < 2:
-        raise SpecError(key, raw, "must list at least two points [[x0,y0],[x1,y1],...]")
+    if not isinstance(raw, list) or not 2 <= len(raw) <= MAX_PATH_POINTS:
+        raise SpecError(key, raw, f"must list 2 to {MAX_PATH_POINTS} points [[x0,y0],[x1,y1],...]")
     pieces: list[Line | Arc] = []
     current: tuple[float, float] | None = None
     for i, item in enumerate(raw):
@@ -446,9 +491,10 @@ def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...
             a, m, b = (reader.point(where, p) for p in item["arc"])
             if current is not None and math.dist(current, a) > 1e-6:
                 raise SpecError(where, item, f"arc must start at the previous point ({current[0]:g}, {current[1]:g})")
-            cross = (m[0] - a[0]) * (b[1] - a[1]) - (m[1] - a[1]) * (b[0] - a[0])
-            if abs(cross) < 1e-9 or math.dist(a, b) < 1e-6:
-                raise SpecError(where, item, "arc points must not be collinear or coincide")
+            if _arc_radius(a, m, b) > MAX_ARC_RADIUS_MM or math.dist(a, b) < 1e-6:
+                raise SpecError(where, item, "arc points must not coincide or lie on one line (on the 1 nm grid, the "
+                                f"circle through them must have a radius of at most {MAX_ARC_RADIUS_MM:g} mm; "
+                                "use a straight segment instead)")
             pieces.append(Arc(a, m, b))
             current = b
         else:
@@ -461,6 +507,15 @@ def _parse_path(reader: _Reader, key: str, raw: object) -> tuple[Line | Arc, ...
     if not pieces:
         raise SpecError(key, raw, "must contain at least one segment")
     return tuple(pieces)
+
+
+def _arc_radius(a: tuple[float, float], m: tuple[float, float], b: tuple[float, float]) -> float:
+    """Radius of the circle through three points as the engine sees them, on the 1 nm grid (inf when collinear)."""
+    (ax, ay), (mx, my), (bx, by) = ((snap(x), snap(y)) for x, y in (a, m, b))
+    cross = (mx - ax) * (by - ay) - (my - ay) * (bx - ax)
+    if cross == 0:
+        return math.inf
+    return math.dist(a, m) * math.dist(m, b) * math.dist(a, b) / (2 * abs(cross))
 
 
 def _parse_layermap(reader: _Reader, key: str, raw: object) -> tuple[tuple[str, int, int], ...]:
@@ -483,11 +538,11 @@ def _parse_tracks(reader: _Reader, key: str, raw: object) -> tuple[TrackObstacle
         where = f"{key}[{i}]"
         if not isinstance(item, dict) or not {"path", "width", "layer"} <= set(item) or set(item) - {"path", "width", "layer", "net"}:
             raise SpecError(where, item, "must be {path=[[x,y],...], width=, layer=} with optional net=")
-        if not isinstance(item["path"], list) or len(item["path"]) < 2:
-            raise SpecError(f"{where}.path", item["path"], "must list at least two points")
+        if not isinstance(item["path"], list) or not 2 <= len(item["path"]) <= MAX_PATH_POINTS:
+            raise SpecError(f"{where}.path", item["path"], f"must list 2 to {MAX_PATH_POINTS} points")
         points = tuple(reader.point(f"{where}.path", p) for p in item["path"])
         out.append(TrackObstacle(points, reader.length(f"{where}.width", item["width"]),
-                                 _parse_text(reader, f"{where}.layer", item["layer"]), str(item.get("net", ""))))
+                                 _parse_layer(reader, f"{where}.layer", item["layer"]), str(item.get("net", ""))))
     return tuple(out)
 
 
@@ -507,7 +562,8 @@ def _parse_vias(reader: _Reader, key: str, raw: object) -> tuple[ViaObstacle, ..
 _PARSERS: dict[str, Callable[[_Reader, str, object], Any]] = {
     "text": _parse_text, "length": _parse_length, "number": _parse_number, "int": _parse_int,
     "choice": _parse_choice, "frequency": _parse_frequency, "size": _parse_size, "sizes": _parse_sizes,
-    "nets": _parse_nets, "layers": _parse_layers, "heights": _parse_heights, "points": _parse_points, "path": _parse_path,
+    "nets": _parse_nets, "layer": _parse_layer, "layers": _parse_layers, "heights": _parse_heights,
+    "points": _parse_points, "path": _parse_path,
     "layermap": _parse_layermap, "tracks": _parse_tracks, "vias": _parse_vias,
 }
 

@@ -7,8 +7,8 @@ import re
 from .errors import SpecError
 
 LENGTH_UNITS_MM = {"mm": 1.0, "um": 1e-3, "mil": 0.0254, "thou": 0.0254, "in": 25.4, "cm": 10.0, "nm": 1e-6}
-FREQUENCY_UNITS_HZ = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
-RATE_UNITS_BPS = {"bps": 1.0, "kbps": 1e3, "mbps": 1e6, "gbps": 1e9, "gt/s": 1e9, "mt/s": 1e6}
+FREQUENCY_UNITS_HZ = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9, "thz": 1e12}
+RATE_UNITS_BPS = {"bps": 1.0, "kbps": 1e3, "mbps": 1e6, "gbps": 1e9, "tbps": 1e12, "gt/s": 1e9, "mt/s": 1e6}
 
 GRID_MM = 1e-6
 """Every coordinate the engine emits lies on this 1 nm grid."""
@@ -77,7 +77,8 @@ def parse_frequency(value: object, key: str) -> float:
         match = _NUMBER_WITH_UNIT.match(value)
         unit = match.group(2).lower() if match else ""
         if not match or not (unit in FREQUENCY_UNITS_HZ or unit in RATE_UNITS_BPS):
-            raise SpecError(key, value, "must be a frequency (Hz, kHz, MHz, GHz) or a data rate (Mbps, Gbps, GT/s)")
+            raise SpecError(key, value,
+                            "must be a frequency (Hz, kHz, MHz, GHz, THz) or a data rate (Mbps, Gbps, Tbps, GT/s)")
         number = float(match.group(1))
         hz = number * (FREQUENCY_UNITS_HZ.get(unit) or RATE_UNITS_BPS[unit])
     else:

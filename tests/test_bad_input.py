@@ -35,7 +35,7 @@ SPEC_CASES = [
     ("slot >= patch", variant("slot = 0.15", "slot = 2.5"), "must be > 0 and < the patch size (2 mm)"),
     ("nan er", variant("er = 4.0", "er = nan"), "stackup.er = nan"),
     ("inf h", variant("\nh = 0.1", "\nh = inf"), "stackup.h = inf"),
-    ("huge patch", variant("patch = [3.0, 2.0]", "patch = [3e6, 2.0]"), "at most 1000 mm"),
+    ("huge patch", variant("patch = [3.0, 2.0]", "patch = [3e6, 2.0]"), "to 1000 mm"),
     ("string count", variant("count = 2", 'count = "two"'), "cut.count = two: must be a whole number"),
     ("float count", variant("count = 2", "count = 2.5"), "cut.count = 2.5"),
     ("bool width", variant("width = 0.1", "width = true"), "pair.width = True"),
@@ -45,7 +45,7 @@ SPEC_CASES = [
     ("unknown group", GOOD + "\n[stakup]\ner = 4\n", "stakup = {...}: unknown key"),
     ("bad style", variant('style = "straight"', 'style = "zigzag"'), "cut.style = zigzag: must be one of straight, folded, bridged"),
     ("empty path", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = []"), "pair.path"),
-    ("single point", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = [[0, 0]]"), "at least two points"),
+    ("single point", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = [[0, 0]]"), "must list 2 to 2000 points"),
     ("duplicate point", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = [[0, 0], [20, 0], [20, 0], [20, 10]]"),
      "zero-length segment"),
     ("point not a pair", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = [[0, 0], [20, 0, 1]]"), "must be a point [x, y]"),
@@ -189,3 +189,170 @@ def test_bad_plans(tmp_path, capsys, plan, words):
     assert main(["place", str(SAMPLES / "hx2_hub.kicad_pcb"), "--plan", str(path), "--out", str(out)]) == 2
     assert words in capsys.readouterr().err
     assert not out.exists()
+
+
+# ---- fuzz findings (tools/fuzz.py): each class once, through check and build alike ----
+
+ZIGZAG = "[[0, 0], [20, 0]" + "".join(f", [{20 + 0.01 * k:.2f}, {0.01 * (k % 2) * (1 if k % 4 == 3 else -1)}]"
+                                     for k in range(1, 1999)) + "]"
+"""A pair path zig-zagging in 0.01 mm steps: its traces would overlap themselves (GEOS took 12 s to buffer them)."""
+FUZZ_CASES = [
+    ("TOML nested 1000 deep", GOOD + "\n[plane]\nnet = " + "[" * 1000 + "]" * 1000 + "\n",
+     "nests arrays or tables too deeply"),
+    ("slot 1e-9", variant("slot = 0.15", "slot = 1e-9"), "cut.slot = 1e-09: must be from 0.001 mm (1 um)"),
+    ("self-crossing outline", GOOD + "\n[plane]\noutline = [[0, -5], [30, 5], [30, -5], [0, 5]]\n",
+     "plane.outline = 4 points: must be a simple polygon that does not cross itself"),
+    ("layer names differing in case", GOOD + '\n[plane]\nlayers = ["in1.cu", "In1.Cu"]\n',
+     "plane.layers[0] = in1.cu: must be a KiCad copper layer name"),
+    ("wildcard layer", GOOD + '\n[plane]\nlayers = ["*.Cu"]\n', "plane.layers[0] = *.Cu"),
+    ("slash in layer", GOOD + '\n[plane]\nlayers = ["In1/Cu"]\n', "plane.layers[0] = In1/Cu"),
+    ("pair layer In31", variant("spacing = 0.1", 'spacing = 0.1\nlayer = "In31.Cu"'), "pair.layer = In31.Cu"),
+    ("NUL in name", 'name = "a\\u0000b"\n' + GOOD, "name = a\\x00b: must be a non-empty string of printable"),
+    ("newline in name", 'name = "a\\nb"\n' + GOOD, "name = a\\nb: must be a non-empty string of printable"),
+    ("255-byte name", f'name = "{"n" * 255}"\n' + GOOD, "at most 100 bytes as UTF-8"),
+    ("trace width under 1 nm", variant("width = 0.1", "width = 1e-7"), "pair.width = 1e-07: must be from 0.001 mm"),
+    ("bridge width 1e-9", variant('style = "straight"', 'style = "bridged"').replace(
+        "web = 0.3", "web = 0.3\nbridge = {width = 1e-9, length = 0.5}"), "cut.bridge.width = 1e-09"),
+    ("near-collinear arc", variant("path = [[0, 0], [20, 0], [20, 10]]",
+                                   "path = [[0, 0], [20, 0], {arc = [[20, 0], [25, 2e-10], [30, 0]]}, [40, 0]]"),
+     "pair.path[2] = {'arc': [[20, 0], [25, 2e-10], [30, 0]]}: arc points must not coincide or lie on one line"),
+    ("zig-zag path", variant("path = [[0, 0], [20, 0], [20, 10]]", f"path = {ZIGZAG}"),
+     "pair.path = 1999 pieces: bends too tightly for the pair"),
+    ("path over the point limit", variant("path = [[0, 0], [20, 0], [20, 10]]", "path = [" + ", ".join(
+        f"[{0.01 * k:.2f}, 0]" for k in range(2001)) + "]"), "must list 2 to 2000 points"),
+    ("slot under build's rule limit", variant("slot = 0.15", "slot = 0.0004") + "\n[rules]\nmin_slot = 0.0001\n",
+     "cut.slot = 0.0004: must be from 0.001 mm"),
+]
+
+
+@pytest.mark.parametrize("text, words", [(t, w) for _, t, w in FUZZ_CASES], ids=[n for n, _, _ in FUZZ_CASES])
+def test_fuzz_findings_exit_2_in_check_and_build_alike(tmp_path, capsys, text, words):
+    """What fuzzing found: check and build accept exactly the same specs (one validation path) and name the key."""
+    spec = tmp_path / "bad.toml"
+    spec.write_text(text, encoding="utf-8")
+    messages = []
+    for argv in (["check", str(spec)], ["build", str(spec), "--out", str(tmp_path / "out")]):
+        assert main(argv) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and err.startswith("ebglayout: error: "), err
+        assert all(c.isprintable() for c in err.rstrip("\n")), err
+        assert words in err, err
+        messages.append(err)
+    assert messages[0] == messages[1]
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("text, words", [
+    ('name = "' + "long-" * 40 + '"\n' + GOOD, "..."),
+    (GOOD.replace("[stackup]", '[stackup]\n"" = 1'), 'stackup."" (the empty key) = 1: unknown key'),
+    (GOOD.replace("width = 0.1", 'width = "0.1\\u001b[31m"'),
+     "pair.width = 0.1\\x1b[31m: must be a number with a length unit"),
+])
+def test_messages_stay_one_readable_line(tmp_path, capsys, text, words):
+    """Control characters are escaped, long values shortened with an ellipsis, the empty key named."""
+    spec = tmp_path / "bad.toml"
+    spec.write_text(text, encoding="utf-8")
+    assert main(["check", str(spec)]) == 2
+    err = capsys.readouterr().err.rstrip("\n")
+    assert "\n" not in err and all(c.isprintable() for c in err) and len(err) < 300, err
+    assert words in err, err
+
+
+def test_byte_order_mark_terahertz_and_nanometres_are_accepted(tmp_path, capsys):
+    """A UTF-8 BOM is accepted; 1 THz is both allowed and accepted as written; nm is a documented unit."""
+    spec = tmp_path / "bom.toml"
+    text = GOOD.replace('units = "mm"', 'units = "mm"\ntarget = "1THz"').replace("slot = 0.15", 'slot = "150000nm"')
+    spec.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
+    assert main(["check", str(spec)]) in (0, 1), capsys.readouterr().err
+    spec.write_text(GOOD.replace('units = "mm"', 'units = "mm"\ntarget = "1.01THz"'), encoding="utf-8")
+    assert main(["check", str(spec)]) == 2
+    assert "target = 1.01THz: must be a frequency above 0 and at most 1 THz" in capsys.readouterr().err
+    from ebglayout.spec import PARAMETER_BY_KEY
+
+    assert "nm" in PARAMETER_BY_KEY["units"].help
+
+
+def _hub_line(text: str, needle: str) -> int:
+    return text[: text.index(needle)].count("\n") + 1
+
+
+@pytest.mark.parametrize("old, new, item, words", [
+    ("(size 0.8 1.2)", "(size 1.6 abc)", "(footprint",
+     "footprint U2: pad 1 needs (at X Y) and (size W H) with finite numbers"),
+    ("(end 127.865 112)", "(end 127.865 1e308)", "(segment",
+     "segment of net 'HX2_L0_TX_P': (end 127.865 1e+308) coordinates must lie within"),
+    ("(xy 145 101)", "(xy nan 101)", "(zone", "zone 'KO1_RA': outline point (xy nan 101) must hold two finite numbers"),
+    ("(epsilon_r 4.1)", "(epsilon_r inf)", '"dielectric 1"',
+     "stack-up layer 'dielectric 1': (epsilon_r inf) must be a number from 1 to 100"),
+    ("(epsilon_r 4.1)", "(epsilon_r nan)", '"dielectric 1"', "stack-up layer 'dielectric 1': (epsilon_r nan)"),
+    ('"dielectric 1" (type "prepreg") (thickness 0.1)', '"dielectric 1" (type "prepreg") (thickness 0)',
+     '"dielectric 1"',
+     "stack-up layer 'dielectric 1': (thickness 0) must be a number > 0"),
+    ("(end 110 90.135) (width 0.12)", "(end 110 90.135) (width 0)", "(segment", "(width 0) must be > 0"),
+    ("(end 110 90.135) (width 0.12)", "(end 110 90.135) (width -0.12)", "(segment", "(width -0.12) must be > 0"),
+    ("(end 110 90.135) (width 0.12)", "(end 110 90.135) (width 1e9)", "(segment",
+     "(width 1e+09) must be > 0 and at most 1000 mm"),
+    ("(end 110 90.135) (width 0.12)", "(end 1e15 90.135) (width 0.12)", "(segment",
+     "(end 1e+15 90.135) coordinates must lie within +-2147.483647 mm"),
+])
+@pytest.mark.parametrize("command", ["pairs", "place"])
+def test_board_values_name_file_line_and_item(tmp_path, capsys, old, new, item, words, command):
+    """Fuzzed board numbers: one line naming the board file, the item's line and the item; nothing written.
+
+    Pads are read only when a filter is placed, so `pairs` reads past a broken pad."""
+    from conftest import SAMPLE_SPECS
+
+    text = sample_board_text()
+    at = text.index(old)
+    line = text[: text.rindex(item, 0, at + len(item))].count("\n") + 1
+    board = tmp_path / "bad.kicad_pcb"
+    board.write_text(text[:at] + new + text[at + len(old):], encoding="utf-8")
+    out = tmp_path / "new.kicad_pcb"
+    argv = ["pairs", str(board)] if command == "pairs" else [
+        "place", str(board), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N", "--spec", str(SAMPLE_SPECS[0]), "--out", str(out)]
+    if command == "pairs" and item == "(footprint":
+        assert main(argv) == 0
+        return
+    assert main(argv) == 2
+    err = capsys.readouterr().err.rstrip("\n")
+    assert "\n" not in err and err.startswith(f"ebglayout: error: bad.kicad_pcb: line {line}, column "), err
+    assert words in err, err
+    assert not out.exists()
+
+
+def test_check_board_names_the_footprint_of_a_broken_stored_design(tmp_path, capsys):
+    """A stored design with a near-collinear arc: board file, the footprint's line and reference, then the key."""
+    from conftest import SAMPLE_SPECS, SAMPLES
+
+    placed = tmp_path / "placed.kicad_pcb"
+    assert main(["place", str(SAMPLES / "hx2_hub.kicad_pcb"), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N",
+                 "--spec", str(SAMPLE_SPECS[0]), "--out", str(placed)]) in (0, 1)
+    capsys.readouterr()
+    text = placed.read_text(encoding="utf-8")
+    old = '[124.9999995,90.0],'
+    assert text.count(old) == 1
+    broken = tmp_path / "broken.kicad_pcb"
+    broken.write_text(text.replace(old, '[110,90.0],{\\"arc\\":[[110,90.0],[115,90.0000000004],[120,90.0]]},' + old),
+                      encoding="utf-8")
+    assert main(["check", "--board", str(broken), "--jobs", "1"]) == 2
+    err = capsys.readouterr().err.rstrip("\n")
+    line = text[: text.index('(footprint "ebglayout')].count("\n") + 1 if '(footprint "ebglayout' in text else None
+    assert err.startswith("ebglayout: error: broken.kicad_pcb: line ") and "footprint FIL1" in err, err
+    assert line is None or f"line {line}," in err, err
+    assert "pair.path[2]" in err and "\n" not in err
+
+
+def test_placed_filter_names_stay_within_the_name_limit():
+    """A long hierarchical net name must not make `place` refuse its own filter name (spec.MAX_NAME_BYTES)."""
+    from ebglayout.kicad.workflow import _filter_name
+    from ebglayout.spec import MAX_NAME_BYTES, spec_from_dict
+
+    base = "/Top/Very_Long_Hierarchical_Sheet_Name/Another_Level/HX2_LANE0_TRANSMIT_DIFFERENTIAL"
+    names = {_filter_name(base + tail, {}, "hx2_l0_tx_straight_with_a_long_name.toml") for tail in ("_A", "_B")}
+    assert len(names) == 2 and all(len(n.encode()) <= MAX_NAME_BYTES for n in names)
+    import tomllib
+
+    raw = tomllib.loads(GOOD)
+    raw["name"] = names.pop()
+    assert spec_from_dict(raw).name == raw["name"]
+    assert _filter_name("HX2_L0_TX", {}, "hx2_l0_tx_straight.toml") == "HX2_L0_TX_hx2_l0_tx_straight"

@@ -79,11 +79,18 @@ def test_bulk_reader_equals_the_tree_on_the_test_boards(path, monkeypatch):
 # ---- items in every spelling the format allows: bulk and tree agree, item by item ----
 
 NUMBERS = ("1.5", "1.50", "+1.5", "15e-1", ".5", "5.", "-0", "0007.25", "-12.000001", "1.2345678901234567",
-           "123456.789", "0", "3", "2E2", "1_0")
+           "2147.483647", "0", "3", "2E-2", "1_0")
+"""Odd spellings of numbers KiCad's coordinate range holds (the reader refuses coordinates beyond +-2147.483647 mm)."""
 
 
 def _number(rng: random.Random) -> str:
     return rng.choice(NUMBERS) if rng.random() < 0.1 else f"{rng.uniform(-50, 250):.{rng.randint(0, 6)}f}"
+
+
+def _width(rng: random.Random) -> str:
+    """A width in some spelling; the reader refuses widths that are not > 0."""
+    return rng.choice(["0.2", "0.2", "0.25", "15e-2", ".5", "5.", "0007.25", "1.2345678901234567", "2E-1",
+                       f"{rng.uniform(0.01, 5):.{rng.randint(2, 6)}f}"])
 
 
 SHADOW_VALUES = {"start": "9.5 9.5", "mid": "9.5 9.5", "end": "9.5 9.5", "at": "9.5 9.5", "width": "0.9", "size": "0.9",
@@ -121,7 +128,7 @@ def _variant_board(rng: random.Random, count: int) -> str:
             if rng.random() < 0.2:
                 a = a[:-1] + rng.choice("0123456789")  # the previous end but (maybe) for its last digit
             b = f"{_number(rng)} {_number(rng)}"
-            fields = [("start", a), ("end", b), ("width", rng.choice(["0.2", "0.2", "0.25", _number(rng)])),
+            fields = [("start", a), ("end", b), ("width", _width(rng)),
                       ("layer", layer_text), ("net", net)]
             if rng.random() < 0.05:
                 fields.append(("width", "0.9"))
@@ -172,10 +179,15 @@ def test_decimal_texts_read_bit_for_bit_like_float():
     rng = random.Random(7)
 
     def decimal() -> str:
+        """Up to 18 significant digits, within KiCad's coordinate range (the reader refuses numbers beyond it)."""
         digits = str(rng.randint(0, 10 ** rng.randint(1, 17)))
-        cut = rng.randint(0, len(digits))
+        cut = rng.randint(0, min(len(digits), 3))
         text = ("-" if rng.random() < 0.3 else "") + (digits[:cut] or "0") + "." + digits[cut:]
-        return text + (f"e{rng.randint(-30, 30)}" if rng.random() < 0.1 else "")
+        return text + (f"e{rng.randint(-30, -1)}" if rng.random() < 0.1 else "")
+
+    def positive() -> str:
+        text = decimal().lstrip("-")
+        return text if float(text) > 0 else "0.2"
 
     rows, expected = [], []
     end = f"{decimal()} {decimal()}"
@@ -186,7 +198,7 @@ def test_decimal_texts_read_bit_for_bit_like_float():
         if rng.random() < 0.2:
             start = f"{decimal()} {decimal()}"
         end = f"{decimal()} {decimal()}"
-        width = rng.choice(["0.2", "0.20", "0.2000000000000000111", decimal().lstrip("-")])
+        width = rng.choice(["0.2", "0.20", "0.2000000000000000111", positive()])
         rows.append(f'  (segment (start {start}) (end {end}) (width {width}) (layer "F.Cu") (net 1))\n')
         expected.append([float(v) for v in f"{start} {end} {width}".split()])
     seg = parse_board(HEADER + "".join(rows) + ")\n", "numbers").segments

@@ -51,7 +51,7 @@ def test_one_pair_height_applies_to_both_planes():
 
 @pytest.mark.parametrize("key, value, words", [
     ("pair_h", [0.1, 0.1, 0.1], "one length, or one length per entry"),
-    ("pair_h", 0, "must be > 0"),
+    ("pair_h", 0, r"must be from 0.001 mm \(1 um\)"),
     ("pair_er", 0.5, "between 1 and 30"),
     ("tan_d", -0.01, "between 0 and 0.2"),
     ("tan_d", True, "between 0 and 0.2"),

@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 from shapely.affinity import affine_transform
-from shapely.geometry import LineString, Polygon
+from shapely.geometry import Polygon
 from shapely.ops import unary_union
 
 from ..crossing import Crossing
@@ -442,6 +442,20 @@ def _references(layer: str, spec: FilterSpec, ctx: CheckContext) -> list[str]:
     return [p for p in spec.plane_layers if abs(_layer_index(p) - i) == 1]
 
 
+def _segment_bodies(track) -> np.ndarray:
+    """The track's copper as one round-capped body per segment: together the track's round-joined outline, without
+    the cost of buffering a long zig-zag as one line (whose overlapping joins GEOS resolves in quadratic time)."""
+    points = np.asarray(track.points, dtype=float)
+    segments = shapely.linestrings(np.stack([points[:-1], points[1:]], axis=1))
+    return shapely.buffer(segments, track.width / 2, cap_style="round")
+
+
+def _overlap(bodies: np.ndarray, region):
+    """Where the first body (along the track) that overlaps ``region`` does so (empty when none does)."""
+    hits = np.flatnonzero(shapely.intersects(bodies, region))
+    return bodies[hits[0]].intersection(region) if len(hits) else shapely.Polygon()
+
+
 def foreign_track(layout: Layout, ctx: CheckContext) -> RuleResult:
     spec = layout.spec
     r = RuleResult("foreign-track", unit="mm", limit=0.0)
@@ -452,12 +466,12 @@ def foreign_track(layout: Layout, ctx: CheckContext) -> RuleResult:
         planes = _references(track.layer, spec, ctx)
         if not planes:
             continue
-        body = LineString(track.points).buffer(track.width / 2, cap_style="round")
+        bodies = _segment_bodies(track)
         for layer in planes:
             cut = layout.cut(layer)
             r.checked += 1
-            over_slot = body.intersection(cut.slot)
-            over_patch = body.intersection(cut.patch)
+            over_slot = _overlap(bodies, cut.slot)
+            over_patch = _overlap(bodies, cut.patch)
             if not over_slot.is_empty:
                 at = over_slot.representative_point()
                 r.add("error", f"{track.layer} track {track.net or '(no net)'} crosses a slot of {layer}",

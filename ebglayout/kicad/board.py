@@ -32,9 +32,9 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString, MultiPolygon, Polygon
 
-from ..errors import BoardError
+from ..errors import BoardError, show
 from ..path import piece_points
-from ..spec import Arc
+from ..spec import COPPER_LAYERS, Arc
 from .fields import (ALTERNATE_WORD, CHUNK, KEEP, MASK, MAX_FIELD, SPACES, Distinct, FieldRows, all_blank, block_floats,
                      byte_window, field_texts, first_row_of, index_ranges, prefix8, row_floats, word_patterns)
 from .sexpr import Quoted, Structure, _heads, error_at, scan, unescape
@@ -42,6 +42,10 @@ from .sexpr import Quoted, Structure, _heads, error_at, scan, unescape
 VERSIONS = {20211014: "6.0", 20221018: "7.0", 20240108: "8.0", 20241229: "9.0"}
 """Version stamps of the major releases (KiCad's own version history; 10.0 files carry 2026xxxx)."""
 OLDEST_VERSION = 20211014
+MAX_COORD_MM = 2147.483647
+"""KiCad stores board coordinates as signed 32-bit counts of nanometres (from memory of its file format)."""
+MAX_SIZE_MM = 1000.0
+"""No track, via or pad is wider than a metre (the spec's largest length); anything beyond is a broken file."""
 NEWEST_CHECKED = 20260206
 COPPER_TYPES = frozenset({"signal", "power", "mixed", "jumper"})
 ISLAND_MODES = {0: "always", 1: "never", 2: "area"}
@@ -544,6 +548,11 @@ class _Reader:
         self.net_lookup = {name: i for i, name in enumerate(self.nets)}
         self.stackup = self._stackup()
         segments, arcs, vias = self._segments(), self._arcs(), self._vias()
+        self._check_items("segment", segments.span, segments.net, (("start", segments.start), ("end", segments.end)),
+                          (("width", segments.width),))
+        self._check_items("arc", arcs.span, arcs.net, (("start", arcs.start), ("mid", arcs.mid), ("end", arcs.end)),
+                          (("width", arcs.width),))
+        self._check_items("via", vias.span, vias.net, (("at", vias.at),), (("size", vias.size), ("drill", vias.drill)))
         zones = tuple(self._zone(start, None) for start, _ in self.s.spans_of("zone").tolist())
         zones += self._footprint_zones()
         outline = self._outline()
@@ -552,6 +561,20 @@ class _Reader:
         if unknown:
             self.warnings.append(f"ignored top-level items this reader does not know: {', '.join(unknown)}")
         return Board(self, segments, arcs, vias, zones, outline)
+
+    def _check_items(self, kind: str, spans: np.ndarray, nets: np.ndarray, coordinates, sizes) -> None:
+        """Refuse the first item whose numbers the engine cannot use, naming it: a coordinate off KiCad's range or
+        a width/size that is not positive (non-finite numbers never get this far), so no item is silently dropped."""
+        for field, values, bad, allowed in (
+                *((f, v, ~(np.abs(v) <= MAX_COORD_MM).all(axis=1), f"coordinates must lie within +-{MAX_COORD_MM} mm "
+                   "(KiCad's board range)") for f, v in coordinates),
+                *((f, v, ~((v > 0) & (v <= MAX_SIZE_MM)), f"must be > 0 and at most {MAX_SIZE_MM:g} mm")
+                  for f, v in sizes)):
+            if bad.any():
+                row = int(np.argmax(bad))
+                shown = " ".join(f"{x:g}" for x in np.atleast_1d(values[row]).tolist())
+                raise self.fail(int(spans[row, 0]), f"{kind} of net {self.nets[int(nets[row])]!r}: ({field} {shown}) "
+                                f"{allowed}")
 
     # ---- header, layers, nets, stack-up ----
 
@@ -585,10 +608,13 @@ class _Reader:
         copper, names = [], {}
         for entry in node[1:]:
             if not isinstance(entry, list) or len(entry) < 3:
-                raise self.fail(start, f"bad entry in the layer table: {_show(entry)}")
+                raise self.fail(start, f"bad entry in the layer table: {show(entry)}")
             name, kind = str(entry[1]), str(entry[2])
             names[name] = str(entry[3]) if len(entry) > 3 else name
             if kind in COPPER_TYPES and name.endswith(".Cu"):
+                if name not in COPPER_LAYERS:
+                    raise self.fail(start, f"copper layer {name!r} in the layer table is not one of KiCad's F.Cu, "
+                                    "In1.Cu .. In30.Cu, B.Cu")
                 copper.append(name)
         if not copper:
             raise self.fail(start, "the layer table lists no copper layer")
@@ -599,7 +625,7 @@ class _Reader:
         nets, codes, codes_by_name = [""], {0: 0}, {"": 0}
         for node, start in self._net_declarations():
             if len(node) < 3:
-                raise self.fail(start, f"bad net declaration {_show(node)}: expected (net CODE \"NAME\")")
+                raise self.fail(start, f"bad net declaration {show(node)}: expected (net CODE \"NAME\")")
             try:
                 code = int(node[1])
             except ValueError:
@@ -666,8 +692,11 @@ class _Reader:
                     elif isinstance(item, list):
                         current.append(item)
                 groups.append(current)
-                parts = [(_num(["x", *g], "thickness"), _num(["x", *g], "epsilon_r"), _num(["x", *g], "loss_tangent"),
-                          str(_atom(["x", *g], "material", default=""))) for g in groups]
+                where = self.data.find(b'"' + name.encode("utf-8") + b'"', setup[0][1])
+                parts = [(self._dielectric_value(["x", *g], "thickness", name, where),
+                          self._dielectric_value(["x", *g], "epsilon_r", name, where),
+                          _num(["x", *g], "loss_tangent"), str(_atom(["x", *g], "material", default="")))
+                         for g in groups]
                 h = None if any(p[0] is None for p in parts) else sum(p[0] for p in parts)
                 er = h / sum(p[0] / p[1] for p in parts) if h and all(p[1] for p in parts) else None
                 if er is None:
@@ -679,6 +708,20 @@ class _Reader:
             self.warnings.append("stack-up copper layers differ from the layer table; stack-up ignored")
             return None
         return Stackup(tuple(copper), tuple(dielectrics))
+
+    def _dielectric_value(self, node: list, head: str, layer: str, offset: int) -> float | None:
+        """A dielectric's thickness (> 0 mm) or epsilon_r (1 to 100); None when left out, an error when unusable."""
+        value = _atom(node, head)
+        if value is None:
+            return None
+        if head == "thickness":
+            usable = _is_number(value) and 0 < float(value) <= MAX_SIZE_MM
+            allowed = f"> 0 and at most {MAX_SIZE_MM:g} mm"
+        else:
+            usable, allowed = _is_number(value) and 1 <= float(value) <= 100, "from 1 to 100"
+        if not usable:
+            raise self.fail(max(offset, 0), f"stack-up layer {layer!r}: ({head} {value}) must be a number {allowed}")
+        return float(value)
 
     # ---- tracks and vias: located from the structure scan, numbers converted in one C call ----
 
@@ -1062,12 +1105,20 @@ class _Reader:
         net = self.net_of(net_field[1], start) if net_field is not None and len(net_field) > 1 else 0
         rings = []
         for poly in _children(node, "polygon"):
-            ring = _ring(_child(poly, "pts"))
+            try:
+                ring = _ring(_child(poly, "pts"))
+            except ValueError as err:
+                raise self.fail(start, f"zone {name!r}: outline point {err}") from None
             if len(ring) < 3:
                 raise self.fail(start, f"zone {name!r} has a polygon with fewer than 3 points")
             rings.append(ring)
         if not rings:
             raise self.fail(start, f"zone {name!r} without an outline (polygon (pts ...))")
+        far = [ring for ring in rings if not (np.abs(ring) <= MAX_COORD_MM).all()]
+        if far:
+            x, y = far[0][np.argmax(~(np.abs(far[0]) <= MAX_COORD_MM).all(axis=1))].tolist()
+            raise self.fail(start, f"zone {name!r}: outline vertex (xy {x:g} {y:g}) must lie within +-{MAX_COORD_MM} "
+                            "mm (KiCad's board range)")
         outline = Polygon(rings[0], rings[1:])
         if not outline.is_valid:
             outline = shapely.make_valid(outline)
@@ -1209,8 +1260,13 @@ class _Reader:
         if len(node) < 4:
             raise self.fail(start, f"footprint {fp.reference}: pad without number, kind and shape")
         at, size = _child(node, "at"), _child(node, "size")
-        if at is None or size is None or len(at) < 3 or len(size) < 3:
-            raise self.fail(start, f"footprint {fp.reference}: pad {node[1]} without (at ...) or (size ...)")
+        if (at is None or size is None or len(at) < 3 or len(size) < 3
+                or not all(_is_number(v) for v in (at[1], at[2], size[1], size[2]))):
+            raise self.fail(start, f"footprint {fp.reference}: pad {node[1]} needs (at X Y) and (size W H) with "
+                            "finite numbers")
+        if not all(0 < float(v) <= MAX_SIZE_MM for v in size[1:3]):
+            raise self.fail(start, f"footprint {fp.reference}: pad {node[1]} (size {size[1]} {size[2]}) must be > 0 "
+                            f"and at most {MAX_SIZE_MM:g} mm")
         drill_node = _child(node, "drill")
         drills = [float(v) for v in drill_node[1:] if _is_number(v)] if drill_node is not None else []
         net_field = _child(node, "net")
@@ -1404,6 +1460,8 @@ def _xy(node: list, head: str) -> tuple[float, float]:
     child = _child(node, head)
     if child is None or len(child) < 3:
         raise ValueError(f"missing ({head} X Y)")
+    if not (_is_number(child[1]) and _is_number(child[2])):
+        raise ValueError(f"({head} {child[1]} {child[2]}) must hold two finite numbers")
     return float(child[1]), float(child[2])
 
 
@@ -1411,10 +1469,9 @@ def _is_number(value) -> bool:
     if not isinstance(value, str) or isinstance(value, Quoted):
         return False
     try:
-        float(value)
+        return math.isfinite(float(value))
     except ValueError:
         return False
-    return True
 
 
 def _as_token(value) -> bytes:
@@ -1432,11 +1489,6 @@ def _atom_text(token: bytes) -> str:
 def _text(token: bytes) -> str:
     text = token.decode("utf-8")
     return unescape(text[1:-1]) if text[:1] == '"' else text
-
-
-def _show(node) -> str:
-    text = repr(node)
-    return text if len(text) < 60 else text[:57] + "..."
 
 
 def _via_kind(words: bytes) -> str:
@@ -1458,7 +1510,7 @@ def _ring(pts: list | None) -> np.ndarray:
         if not isinstance(item, list) or not item:
             continue
         if item[0] == "xy":
-            new = [(float(item[1]), float(item[2]))]
+            new = [_xy(["", item], "xy")]
         elif item[0] == "arc":
             new = piece_points(Arc(_xy(item, "start"), _xy(item, "mid"), _xy(item, "end")))
         else:

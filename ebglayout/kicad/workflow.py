@@ -9,10 +9,10 @@ from __future__ import annotations
 
 import bisect
 import fnmatch
+import hashlib
 import json
 import math
 import re
-import tomllib
 from contextlib import nullcontext
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -30,7 +30,8 @@ from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points, polyline_of
 from ..pipeline import FilterResult, can_fork, output_names, write_filter
-from ..spec import Arc, spec_from_dict
+from ..spec import MAX_NAME_BYTES, Arc, read_toml, spec_from_dict
+from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
@@ -38,7 +39,7 @@ from .pairs import (BoardPair, board_stackup, find_pairs, nearest_planes, obstac
                     plane_layers_for, stackup_notes)
 from .placed import board_cuts, placed_results
 from .rules import merge_rules, rules_text
-from .sexpr import unescape
+from .sexpr import error_at, unescape
 
 
 @dataclass(frozen=True)
@@ -82,13 +83,7 @@ class Placement:
 
 
 def load_spec_dict(path: str | Path) -> dict:
-    path = Path(path)
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError("spec", str(path), f"cannot be read ({err.__class__.__name__})") from None
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError("spec", path.name, f"is not valid TOML ({err})") from None
+    return read_toml(path)
 
 
 PLAN_KEYS = {"spec", "pair", "match", "stackup_from_spec"}
@@ -294,7 +289,10 @@ def _next_reference(board: Board, taken: set[str]) -> str:
 def _filter_name(base: str, spec: dict, source: str) -> str:
     stem = str(spec.get("name") or Path(source).stem)
     text = f"{base}_{stem}" if base not in stem else stem
-    return re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
+    name = re.sub(r"[^A-Za-z0-9_.-]", "_", text).lstrip(".") or "filter"
+    if len(name) > MAX_NAME_BYTES:  # long hierarchical net names: keep the name a file name, and distinct
+        name = name[: MAX_NAME_BYTES - 9] + "_" + hashlib.sha256(name.encode()).hexdigest()[:8]
+    return name
 
 
 def build_on_board(board: Board, request: Request, pair: BoardPair, reference: str, texts: BoardTexts | None = None,
@@ -428,8 +426,9 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
             continue
         try:
             design = json.loads(unescape(match.group(1).decode("utf-8")))
-        except (ValueError, UnicodeDecodeError):
-            raise BoardError(f"{board.name}: footprint at byte {start} carries an unreadable {DESIGN_PROPERTY}") from None
+        except (ValueError, UnicodeDecodeError, RecursionError):
+            raise error_at(board.name, board.data, start,
+                           f"footprint carries an unreadable {DESIGN_PROPERTY}") from None
         found.append((board.footprint(index), design))
     return found
 
@@ -542,8 +541,12 @@ def _recheck(job: _Recheck, index: int) -> CheckReport:
     from ..estimate.band import estimate_layout
 
     board, (footprint, design) = job.board, job.designs[index]
-    spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
-    designed = build_layout(spec)
+    try:
+        spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
+        designed = build_layout(spec)
+    except EbgError as err:
+        raise error_at(board.name, board.data, footprint.span[0], f"footprint {footprint.reference}: its "
+                       f"{DESIGN_PROPERTY} cannot be rebuilt: {err}") from None
     on_board = board_cuts(board, footprint, designed)
     layout = with_copper(_cells_moved(designed, footprint), cuts=on_board.cuts)
     match = [bp for bp in job.pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
