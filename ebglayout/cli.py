@@ -75,7 +75,10 @@ def _parser() -> argparse.ArgumentParser:
 
     p = command("refine", "correct a spec's dimensions from the notch a simulation observed")
     p.add_argument("spec", type=Path)
-    p.add_argument("--observed", required=True, help='notch frequency the simulation found, e.g. "7.4GHz"')
+    given = p.add_mutually_exclusive_group(required=True)
+    given.add_argument("--observed", help='notch frequency the simulation found, e.g. "7.4GHz"')
+    given.add_argument("--result", type=Path, metavar="FILE.json",
+                       help="result file of the full-wave command or the fast model (its scc21.notch_hz)")
     p.add_argument("--json", action="store_true", help="print JSON")
 
     p = command("pairs", "list the differential pairs on a KiCad board and the straight runs a filter fits on")
@@ -308,7 +311,19 @@ def _refine(args) -> int:
     from .spec import load_spec
     from .units import parse_frequency
 
-    result = refine(load_spec(args.spec), parse_frequency(args.observed, "--observed"))
+    spec = load_spec(args.spec)
+    if args.result is None:
+        result = refine(spec, parse_frequency(args.observed, "--observed"))
+    else:
+        from .response import read_observed_notch
+
+        seen = read_observed_notch(args.result)
+        origin = {"file": seen.path, "source": seen.source}
+        if not seen.reached_threshold:
+            depth = "depth not stated" if seen.depth_db is None else f"{seen.depth_db:g} dB"
+            origin["note"] = (f"the notch is shallow ({depth}, never at the file's threshold): "
+                              "check the run before trusting its frequency")
+        result = refine(spec, seen.notch_hz, observed_from=origin)
     print(json.dumps(result, indent=2) if args.json else format_refine(result))
     return 0
 

@@ -103,7 +103,7 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
     return out
 
 
-def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
+def refine(spec: FilterSpec, observed_hz: float, keep: str = "across", observed_from: dict | None = None) -> dict:
     """Second pass: re-size every cell after a field solve of the first pass notched at ``observed_hz``.
 
     The usual two-stage correction: the model was off by f_obs / f_target, so
@@ -115,7 +115,7 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
     by the pair and the bridge keep-out) and re-sizes the along size;
     "aspect" scales both.  Returns {"target_hz", "observed_hz", "factor",
     "design_hz", "cells": [{"index", "model_hz", "design_hz", "patch"}],
-    "patches", "caution"}.
+    "patches", "caution"}, and "observed_from" (e.g. the result file and its source) when given.
     """
     if spec.target_hz is None:
         raise SpecError("target", "(missing)", "refine needs the spec's target frequency")
@@ -135,8 +135,11 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
                                 spec.slot if bridge else None, size[1] if keep == "across" else None)
         cells.append({"index": i, "model_hz": _hz(model), "design_hz": _hz(model * factor), "patch": sized["patch"]})
         patches.append(sized["patch"])
-    return {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
-            "design_hz": _hz(spec.target_hz * factor), "cells": cells, "patches": patches, "caution": CAUTION}
+    out = {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
+           "design_hz": _hz(spec.target_hz * factor), "cells": cells, "patches": patches, "caution": CAUTION}
+    if observed_from:
+        out["observed_from"] = dict(observed_from)
+    return out
 
 
 def _cell(size: tuple[float, float], bridged: SimpleNamespace | None) -> PlacedCell:
@@ -181,8 +184,14 @@ def format_sizing(result: dict) -> str:
 
 def format_refine(result: dict) -> str:
     """Terminal summary of ``refine``: the correction factor and the new patch sizes as a cut.patches line."""
-    lines = [f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
-             f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})"]
+    lines = []
+    origin = result.get("observed_from")
+    if origin:
+        lines.append(f"observed notch from {origin['file']} ({origin['source']})")
+        if origin.get("note"):
+            lines.append(f"note: {origin['note']}")
+    lines.append(f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
+                 f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})")
     for cell in result["cells"]:
         lines.append(f"  cell {cell['index']}: patch {cell['patch'][0]:.4g} x {cell['patch'][1]:.4g} mm")
     lines.append("cut.patches = [" + ", ".join(f"[{a:g}, {b:g}]" for a, b in result["patches"]) + "]")
