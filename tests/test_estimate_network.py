@@ -50,7 +50,7 @@ def test_full_width_ports_see_the_parallel_plate_line(numeric):
     z = modes.impedance(freq, er, h, 0.0)
     beta = 2 * math.pi * freq * math.sqrt(er) / C0
     z0 = ETA0 * (h / b) / math.sqrt(er)
-    tol = 0.02 if numeric else 2e-3
+    tol = 0.02 if numeric else 5e-3  # the closed form's tail is summed to 240 modes per axis
     assert z[:, 0, 0].imag == pytest.approx(-z0 / np.tan(beta * a * 1e-3), rel=tol, abs=0.02)
     assert z[:, 1, 0].imag == pytest.approx(-z0 / np.sin(beta * a * 1e-3), rel=tol, abs=0.02)
     assert np.allclose(z, np.transpose(z, (0, 2, 1)))

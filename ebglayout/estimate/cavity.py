@@ -293,7 +293,7 @@ class PortModes:
 
 MU0 = 1.25663706212e-6
 """Vacuum permeability, H/m (CODATA 2018)."""
-_TAIL_MODES = 300
+_TAIL_MODES = 240
 """Highest mode index per axis summed into a rectangle's quasi-static tail (the port averaging makes the
 terms fall as 1/n^4 beyond the port width's own scale)."""
 

@@ -83,13 +83,85 @@ def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z
 
 
 def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: CoupledLines) -> np.ndarray:
-    """Admittance matrices (F, 4, 4) of the whole filter at its four ports."""
-    branches = _branches(layout)
-    length = layout.centreline.length
+    """Admittance matrices (F, 4, 4) of the whole filter at its four ports.
+
+    Crossings that share a cavity (and everything between them) form one group, solved as a small nodal
+    network; the groups and the plain line between them are chained as 4 x 4 transfer (ABCD) matrices.
+    """
+    chain = None
+    at = 0.0
+    solved: dict[bytes, np.ndarray] = {}
+    for start, end, group in _groups(_branches(layout)):
+        key = _group_key(layout, group, start)
+        if key not in solved:
+            solved[key] = _transfer_from_admittance(_span_admittance(layout, group, start, end, freq, stackup,
+                                                                     lines))
+        step = solved[key]
+        if start > at:
+            step = section_transfer(lines, freq, (start - at) * 1e-3) @ step
+        chain = step if chain is None else chain @ step
+        at = end
+    tail = section_transfer(lines, freq, (layout.centreline.length - at) * 1e-3)
+    chain = tail if chain is None else chain @ tail
+    return _admittance_from_transfer(chain)
+
+
+def _group_key(layout: Layout, group: list[_Branch], start: float) -> bytes:
+    """The group's crossings and the copper of its cavities relative to its first crossing, in 1 nm steps:
+    groups drawn alike (the cells of a row) are solved once."""
+    origin = np.asarray(group[0].point)
+    parts = []
+    for b in group:
+        parts.append(repr((b.layer, b.trace, round((b.s - start) / STATION_MM), round(b.width / 1e-6),
+                           [name == "plane" for name in b.bodies])).encode())
+        parts.append(np.round((np.asarray(b.point) - origin) / 1e-6).astype(np.int64).tobytes())
+    for layer, name in sorted({(b.layer, n) for b in group for n in b.bodies if n.startswith("patch")}):
+        cut = layout.cut(layer)
+        patch = cut.patch.geoms[int(name[5:])]
+        ties = [g for g in cut.bridge.geoms if g.distance(patch) < TOUCH_MM]
+        for geom in (patch, *ties):
+            parts.append(np.round((shapely.get_coordinates(geom) - origin) / 1e-6).astype(np.int64).tobytes())
+    return b"|".join(parts)
+
+
+def _groups(branches: list[_Branch]) -> list[tuple[float, float, list[_Branch]]]:
+    """Crossings grouped so that no cavity is shared between groups, each with its span along the path (mm)."""
+    spans: list[list] = []
+    for b in sorted(branches, key=lambda b: b.s):
+        bodies = {(b.layer, name) for name in b.bodies if name.startswith("patch")}
+        joined = [g for g in spans if g[3] & bodies or g[1] >= b.s - STATION_MM]
+        if joined:
+            first = joined[0]
+            for g in joined[1:]:
+                first[1] = max(first[1], g[1])
+                first[2].extend(g[2])
+                first[3] |= g[3]
+                spans.remove(g)
+            first[1] = max(first[1], b.s)
+            first[2].append(b)
+            first[3] |= bodies
+        else:
+            spans.append([b.s, b.s, [b], bodies])
+    # a later crossing on an earlier group's cavity merges every group between them as well
+    merged: list[list] = []
+    for g in sorted(spans, key=lambda g: g[0]):
+        if merged and (merged[-1][3] & g[3] or merged[-1][1] >= g[0] - STATION_MM):
+            merged[-1][1] = max(merged[-1][1], g[1])
+            merged[-1][2].extend(g[2])
+            merged[-1][3] |= g[3]
+        else:
+            merged.append(g)
+    return [(g[0], g[1], g[2]) for g in merged]
+
+
+def _span_admittance(layout: Layout, branches: list[_Branch], start: float, end: float, freq: np.ndarray,
+                     stackup: Stackup, lines: CoupledLines) -> np.ndarray:
+    """Admittance (F, 4, 4) of one group: its crossings and the line between them, nodes [P, N at ``start``
+    (before its first crossing), P, N at ``end`` (after its last)]."""
     stations = sorted({round(b.s / STATION_MM) for b in branches})
-    positions = [0.0] + [k * STATION_MM for k in stations] + [length]
-    station_of = {k: i + 1 for i, k in enumerate(stations)}
-    # node numbering: per position and trace a left and a right node; they are one node where nothing crosses
+    positions = [k * STATION_MM for k in stations]
+    station_of = {k: i for i, k in enumerate(stations)}
+    # per station and trace a left and a right node; one node where that trace does not cross there
     crossed = {(station_of[round(b.s / STATION_MM)], b.trace) for b in branches}
     left, right, count = {}, {}, 0
     for i in range(len(positions)):
@@ -101,11 +173,9 @@ def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: C
             right[i, t] = count - 1
     nodes = np.zeros((len(freq), count, count), dtype=complex)
     for i in range(len(positions) - 1):
-        span = positions[i + 1] - positions[i]
-        if span <= 0:
-            continue
-        idx = [right[i, 0], right[i, 1], left[i + 1, 0], left[i + 1, 1]]
-        nodes[:, np.ix_(idx, idx)[0], np.ix_(idx, idx)[1]] += section_admittance(lines, freq, span * 1e-3)
+        idx = np.array([right[i, 0], right[i, 1], left[i + 1, 0], left[i + 1, 1]])
+        span = (positions[i + 1] - positions[i]) * 1e-3
+        nodes[:, idx[:, None], idx[None, :]] += section_admittance(lines, freq, span)
     for layer in dict.fromkeys(b.layer for b in branches):
         mine = [b for b in branches if b.layer == layer]
         z_branch = _branch_impedance(layout, mine, freq, stackup)
@@ -114,16 +184,56 @@ def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: C
             at = station_of[round(b.s / STATION_MM)]
             incidence[k, left[at, b.trace]] += 1.0
             incidence[k, right[at, b.trace]] -= 1.0
-        nodes += incidence.T[None] @ np.linalg.inv(z_branch) @ incidence[None]
-    ports = [left[0, 0], left[0, 1], right[len(positions) - 1, 0], right[len(positions) - 1, 1]]
-    inner = [k for k in range(count) if k not in ports]
-    ypp = nodes[:, ports][:, :, ports]
-    if not inner:
+        nodes += incidence.T @ np.linalg.inv(z_branch) @ incidence
+    last = len(positions) - 1
+    ports = np.array([left[0, 0], left[0, 1], right[last, 0], right[last, 1]])
+    inner = np.array([k for k in range(count) if k not in set(ports.tolist())], dtype=int)
+    ypp = nodes[:, ports[:, None], ports[None, :]]
+    if not len(inner):
         return ypp
-    ypi = nodes[:, ports][:, :, inner]
-    yip = nodes[:, inner][:, :, ports]
-    yii = nodes[:, inner][:, :, inner]
+    ypi = nodes[:, ports[:, None], inner[None, :]]
+    yip = nodes[:, inner[:, None], ports[None, :]]
+    yii = nodes[:, inner[:, None], inner[None, :]]
     return ypp - ypi @ np.linalg.solve(yii, yip)
+
+
+def _transfer_from_admittance(y: np.ndarray) -> np.ndarray:
+    """4 x 4 transfer matrix [[A, B], [C, D]] (V1 = A V2 + B I2, I1 = C V2 + D I2, I2 leaving end 2) of a
+    two-end network given by its admittance matrix (2 x 2 blocks, one per end)."""
+    y11, y12, y21, y22 = y[:, :2, :2], y[:, :2, 2:], y[:, 2:, :2], y[:, 2:, 2:]
+    inv21 = np.linalg.inv(y21)
+    top = np.concatenate([-inv21 @ y22, -inv21], axis=2)
+    bottom = np.concatenate([y12 - y11 @ inv21 @ y22, -y11 @ inv21], axis=2)
+    return np.concatenate([top, bottom], axis=1)
+
+
+def _admittance_from_transfer(t: np.ndarray) -> np.ndarray:
+    """The inverse of ``_transfer_from_admittance``."""
+    a, b, c, d = t[:, :2, :2], t[:, :2, 2:], t[:, 2:, :2], t[:, 2:, 2:]
+    inv_b = np.linalg.inv(b)
+    top = np.concatenate([d @ inv_b, c - d @ inv_b @ a], axis=2)
+    bottom = np.concatenate([-inv_b, inv_b @ a], axis=2)
+    return np.concatenate([top, bottom], axis=1)
+
+
+def section_transfer(lines: CoupledLines, freq: np.ndarray, length_m: float) -> np.ndarray:
+    """Transfer matrix (F, 4, 4) of a coupled-line section: per mode A = D = cosh(gamma l), B = Z0 sinh(gamma l),
+    C = sinh(gamma l) / Z0 (Pozar, Microwave Engineering, 4th ed., Table 4.1; from memory), each mode acting on
+    its own share of the P/N voltages and currents (even: the mean, odd: half the difference)."""
+    out = np.zeros((len(freq), 4, 4), dtype=complex)
+    for mode, mode_line, sign in (("even", lines.even, 1.0), ("odd", lines.odd, -1.0)):
+        gl = lines.gamma(freq, mode) * length_m
+        ch, sh = np.cosh(gl), np.sinh(gl)
+        blocks = np.stack([np.stack([ch, mode_line.z0 * sh], -1), np.stack([sh / mode_line.z0, ch], -1)], -2)
+        out += _per_trace(blocks, sign)
+    return out
+
+
+def _per_trace(blocks: np.ndarray, sign: float) -> np.ndarray:
+    """A mode's (F, 2, 2) end-to-end matrix spread over the traces: rows and columns [P1, N1, P2, N2], the mode
+    taking (V_P + sign V_N) / 2 and giving its current to P and sign x it to N."""
+    share = np.array([[1.0, sign], [sign, 1.0]]) / 2
+    return (blocks[:, :, None, :, None] * share[None, None, :, None, :]).reshape(len(blocks), 4, 4)
 
 
 def section_admittance(lines: CoupledLines, freq: np.ndarray, length_m: float) -> np.ndarray:
@@ -139,8 +249,7 @@ def section_admittance(lines: CoupledLines, freq: np.ndarray, length_m: float) -
         y11 = 1 / (mode_line.z0 * np.tanh(gl))
         y12 = -1 / (mode_line.z0 * np.sinh(gl))
         ends = np.stack([np.stack([y11, y12], -1), np.stack([y12, y11], -1)], -2)
-        traces = np.array([[1.0, sign], [sign, 1.0]]) / 2
-        out += np.einsum("fab,ij->faibj", ends, traces).reshape(len(freq), 4, 4)
+        out += _per_trace(ends, sign)
     return out
 
 

@@ -1,0 +1,65 @@
+"""Model rejection over the tolerance corners: the corners move the notch the way the physics says, and the
+guaranteed stopband is what every corner rejects.
+
+References outside ebglayout:
+- the cavity model's modes scale as 1 / sqrt(er) and fall as the patch grows (Pozar, Microwave Engineering,
+  4th ed., cavity model of the rectangular patch), so a higher er and an under-etched (larger) patch notch lower;
+- scikit-rf computes the mixed-mode terms (ebglayout.sparams); ebglayout.response reads the curves.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from ebglayout.bundled import samples_folder
+from ebglayout.estimate.rejection import Rejection, model_rejection, sweep
+from ebglayout.layout import build_layout
+from ebglayout.response import summarize
+from ebglayout.spec import load_spec
+
+
+def _straight(**changes):
+    spec = load_spec(samples_folder() / "hx2_l0_tx_straight.toml")
+    return build_layout(replace(spec, **changes))
+
+
+def test_corners_move_the_notch_as_the_cavity_does():
+    layout = _straight(tan_d=0.0)
+    freq = sweep(layout, [16e9], points=1201)
+    rej = model_rejection(layout, freq)
+    assert len(rej.corners) == 17
+    notch = {label: summarize(freq, curve).notch_hz for label, curve in rej.corners.items()}
+    t = layout.spec.er_tolerance
+    for rest in ("h- pair_h- etch-", "h+ pair_h+ etch+"):
+        ratio = notch[f"er+ {rest}"] / notch[f"er- {rest}"]
+        assert ratio == pytest.approx(math.sqrt((1 - t) / (1 + t)), rel=0.015)
+    # over-etch shrinks the patches: the notch rises
+    assert notch["er- h- pair_h- etch+"] > notch["er- h- pair_h- etch-"]
+    data = rej.to_json()
+    low, high = data["notch_spread_hz"]
+    assert low == pytest.approx(min(notch.values()), abs=1.0) and high == pytest.approx(max(notch.values()), abs=1.0)
+    for band_low, band_high in data["guaranteed_stopband_hz"]:
+        for curve in rej.corners.values():
+            inside = (freq >= band_low) & (freq <= band_high)
+            assert curve[inside].max() <= data["threshold_db"] + 1e-6
+
+
+def test_without_etch_there_are_eight_corners():
+    layout = _straight()
+    rej = model_rejection(layout, sweep(layout, [16e9], points=201), etch=False)
+    assert len(rej.corners) == 9 and rej.tolerances["etch_mm"] == 0.0
+
+
+def test_target_covered_needs_one_band_holding_the_margin():
+    freq = np.linspace(9e9, 11e9, 2001)
+    dip = -30 * np.exp(-((freq - 10e9) / 0.2e9) ** 2)
+    shifted = -30 * np.exp(-((freq - 10.15e9) / 0.2e9) ** 2)
+    def make(curves, margin):
+        return Rejection(freq, None, curves, 10e9, -10.0, margin, {})
+    # each dip is below -10 dB within about +-0.21 GHz of its centre; together 9.94 .. 10.21 GHz
+    assert make({"a": dip, "b": shifted}, 0.005).target_covered() is True
+    assert make({"a": dip, "b": shifted}, 0.02).target_covered() is False
+    assert Rejection(freq, None, {"a": dip}, None, -10.0, 0.005, {}).target_covered() is None
