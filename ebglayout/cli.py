@@ -60,7 +60,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--jobs", type=int, default=0, metavar="N",
                    help="with --board: processes sharing the filters (default: one per usable CPU; 1: no workers)")
 
-    p = command("estimate", "estimate where the drawn cut notches (cavity modes, bridged-cell LC, band)")
+    p = command("estimate", "estimate the drawn cut's notch: cavity modes, bridged-cell LC, and the model's Scc21/Sdd21 over the tolerance corners")
     p.add_argument("spec", type=Path)
     p.add_argument("--json", action="store_true", help="print JSON")
 
@@ -150,9 +150,9 @@ def _demo(args) -> int:
         result = build_to_folder(spec, args.out / spec.name, force=args.force)
         c = result.checks
         est = result.estimate.to_json() if result.estimate is not None else None
-        band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
+        band = f"{est['notch_spread']['low_hz'] / 1e9:.2f}-{est['notch_spread']['high_hz'] / 1e9:.2f} GHz" if est else "-"
         print(f"{spec.name:<22} {spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
-              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch band {band}  "
+              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch spread {band}  "
               f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / spec.name}")
         worst = max(worst, 1 if c.errors else 0)
     print("Estimates are for placement and review; confirm with a field solve and measurement.")
@@ -277,7 +277,7 @@ def _estimate(args) -> int:
     from .layout import build_layout
     from .spec import load_spec
 
-    estimate = estimate_layout(build_layout(load_spec(args.spec)))
+    estimate = estimate_layout(build_layout(load_spec(args.spec)), model=True)
     print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate))
     return 0
 

@@ -17,7 +17,8 @@ from .outputs import StagedOutputs
 from .report import report_data, to_json_text
 from .spec import FilterSpec
 
-OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png", ".kicad_mod", ".kicad_dru")
+OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png", ".kicad_mod", ".kicad_dru", ".s4p", "_response.svg",
+                   "_response.png")
 
 
 @dataclass(frozen=True)
@@ -36,7 +37,7 @@ def make_filter(spec: FilterSpec, context=None) -> FilterResult:
     from .estimate.band import estimate_layout
 
     layout = build_layout(spec)
-    estimate = estimate_layout(layout)
+    estimate = estimate_layout(layout, model=True)
     checks = run_checks(layout, context, estimate=estimate)
     return FilterResult(layout, checks, estimate)
 
@@ -83,10 +84,28 @@ def write_filter(result: FilterResult, staged: StagedOutputs, report_name: str =
         staged.write_text(name + ".kicad_mod", footprint_text(result.layout))
         staged.write_text(name + ".kicad_dru", rules_text(result.layout))
         staged.write_text(report_name, to_json_text(report_data(result.layout, result.checks, result.estimate)))
+        _write_model(result, staged, notch)
     finally:
         done = child is None or _succeeded(child)  # always waited for: no file may appear after a failure here
     if not done:
         dxf()
+
+
+def _write_model(result: FilterResult, staged: StagedOutputs, notch: dict | None) -> None:
+    """The circuit model's 4-port (.s4p) and its Scc21/Sdd21 plot, when the estimate carries the model."""
+    rejection = getattr(result.estimate, "rejection", None)
+    if rejection is None:
+        return
+    from .estimate.network import SOURCE
+    from .estimate.rejection import MODEL_CAUTION
+    from .export.response_plot import write_response_plot
+    from .sparams import write_touchstone
+
+    name = result.name
+    write_touchstone(rejection.network, staged.path(name + ".s4p"),
+                     [f"{SOURCE}, filter {name}", "nominal stack-up; " + MODEL_CAUTION])
+    write_response_plot(notch["model"], staged.path(name + "_response.svg"), staged.path(name + "_response.png"),
+                        name=name)
 
 
 def usable_cpus() -> int:

@@ -45,6 +45,8 @@ SOURCE = "model: coupled lines and cavity modal expansion (ebglayout estimate)"
 KEEP_FACTOR = 3.0
 """Modes up to this many times the highest wavenumber asked for are kept with their resonance; the rest enter
 as the quasi-static tail (their error there is below (1 / 3)^2 = 11 % of their own small share)."""
+CHUNK = 256
+"""Frequencies solved together: the per-frequency matrices of a chunk stay in the processor's cache."""
 STATION_MM = 1e-4
 """Crossings of the two traces closer than this along the path share one station of the line model."""
 
@@ -76,7 +78,8 @@ def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z
     spec = layout.spec
     lines = pair_lines(stackup, spec.pair_width, spec.pair_spacing)
     z0 = z0_ohm if z0_ohm is not None else math.sqrt(lines.even.z0 * lines.odd.z0)
-    y = port_admittance(layout, freq, stackup, lines)
+    y = np.concatenate([port_admittance(layout, freq[k:k + CHUNK], stackup, lines)
+                        for k in range(0, len(freq), CHUNK)])
     eye = np.eye(4)[None]
     s = np.linalg.solve(eye + z0 * y, eye - z0 * y)
     return skrf.Network(frequency=skrf.Frequency.from_f(freq, unit="hz"), s=s, z0=z0, name=spec.name)
@@ -85,8 +88,8 @@ def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z
 def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: CoupledLines) -> np.ndarray:
     """Admittance matrices (F, 4, 4) of the whole filter at its four ports.
 
-    Crossings that share a cavity (and everything between them) form one group, solved as a small nodal
-    network; the groups and the plain line between them are chained as 4 x 4 transfer (ABCD) matrices.
+    Crossings that share a cavity (and everything between them) form one group (``_group_transfer``); the
+    groups and the plain line between them are chained as 4 x 4 transfer (ABCD) matrices.
     """
     chain = None
     at = 0.0
@@ -94,8 +97,7 @@ def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: C
     for start, end, group in _groups(_branches(layout)):
         key = _group_key(layout, group, start)
         if key not in solved:
-            solved[key] = _transfer_from_admittance(_span_admittance(layout, group, start, end, freq, stackup,
-                                                                     lines))
+            solved[key] = _group_transfer(layout, group, freq, stackup, lines)
         step = solved[key]
         if start > at:
             step = section_transfer(lines, freq, (start - at) * 1e-3) @ step
@@ -154,57 +156,53 @@ def _groups(branches: list[_Branch]) -> list[tuple[float, float, list[_Branch]]]
     return [(g[0], g[1], g[2]) for g in merged]
 
 
-def _span_admittance(layout: Layout, branches: list[_Branch], start: float, end: float, freq: np.ndarray,
-                     stackup: Stackup, lines: CoupledLines) -> np.ndarray:
-    """Admittance (F, 4, 4) of one group: its crossings and the line between them, nodes [P, N at ``start``
-    (before its first crossing), P, N at ``end`` (after its last)]."""
-    stations = sorted({round(b.s / STATION_MM) for b in branches})
-    positions = [k * STATION_MM for k in stations]
-    station_of = {k: i for i, k in enumerate(stations)}
-    # per station and trace a left and a right node; one node where that trace does not cross there
-    crossed = {(station_of[round(b.s / STATION_MM)], b.trace) for b in branches}
-    left, right, count = {}, {}, 0
-    for i in range(len(positions)):
-        for t in (0, 1):
-            left[i, t] = count
-            count += 1
-            if (i, t) in crossed:
-                count += 1
-            right[i, t] = count - 1
-    nodes = np.zeros((len(freq), count, count), dtype=complex)
-    for i in range(len(positions) - 1):
-        idx = np.array([right[i, 0], right[i, 1], left[i + 1, 0], left[i + 1, 1]])
-        span = (positions[i + 1] - positions[i]) * 1e-3
-        nodes[:, idx[:, None], idx[None, :]] += section_admittance(lines, freq, span)
-    for layer in dict.fromkeys(b.layer for b in branches):
+def _group_transfer(layout: Layout, branches: list[_Branch], freq: np.ndarray, stackup: Stackup,
+                    lines: CoupledLines) -> np.ndarray:
+    """Transfer matrix (F, 4, 4) of one group, from just before its first crossing to just after its last.
+
+    Unknowns: the state [V_P, V_N, I_P, I_N] where the group starts, and the current through every crossing
+    (one per station and trace; crossings of two cut planes at one place share it, their series elements in
+    parallel).  Walking the stations in order, the lines carry the state forward and each crossing subtracts
+    its series voltage; every crossing's current must equal the trace current where it sits.  That linear
+    system gives the state at the end in terms of the state at the start.
+    """
+    station_of = {k: i for i, k in enumerate(sorted({round(b.s / STATION_MM) for b in branches}))}
+    slots = sorted({(station_of[round(b.s / STATION_MM)], b.trace) for b in branches})
+    slot_of = {slot: j for j, slot in enumerate(slots)}
+    count, n_freq = len(slots), len(freq)
+    layers = list(dict.fromkeys(b.layer for b in branches))
+    z_slots = None
+    y_slots = np.zeros((n_freq, count, count), dtype=complex)
+    for layer in layers:
         mine = [b for b in branches if b.layer == layer]
-        z_branch = _branch_impedance(layout, mine, freq, stackup)
-        incidence = np.zeros((len(mine), count))
+        to_slot = np.zeros((len(mine), count))
         for k, b in enumerate(mine):
-            at = station_of[round(b.s / STATION_MM)]
-            incidence[k, left[at, b.trace]] += 1.0
-            incidence[k, right[at, b.trace]] -= 1.0
-        nodes += incidence.T @ np.linalg.inv(z_branch) @ incidence
-    last = len(positions) - 1
-    ports = np.array([left[0, 0], left[0, 1], right[last, 0], right[last, 1]])
-    inner = np.array([k for k in range(count) if k not in set(ports.tolist())], dtype=int)
-    ypp = nodes[:, ports[:, None], ports[None, :]]
-    if not len(inner):
-        return ypp
-    ypi = nodes[:, ports[:, None], inner[None, :]]
-    yip = nodes[:, inner[:, None], ports[None, :]]
-    yii = nodes[:, inner[:, None], inner[None, :]]
-    return ypp - ypi @ np.linalg.solve(yii, yip)
-
-
-def _transfer_from_admittance(y: np.ndarray) -> np.ndarray:
-    """4 x 4 transfer matrix [[A, B], [C, D]] (V1 = A V2 + B I2, I1 = C V2 + D I2, I2 leaving end 2) of a
-    two-end network given by its admittance matrix (2 x 2 blocks, one per end)."""
-    y11, y12, y21, y22 = y[:, :2, :2], y[:, :2, 2:], y[:, 2:, :2], y[:, 2:, 2:]
-    inv21 = np.linalg.inv(y21)
-    top = np.concatenate([-inv21 @ y22, -inv21], axis=2)
-    bottom = np.concatenate([y12 - y11 @ inv21 @ y22, -y11 @ inv21], axis=2)
-    return np.concatenate([top, bottom], axis=1)
+            to_slot[k, slot_of[station_of[round(b.s / STATION_MM)], b.trace]] = 1.0
+        z_layer = _branch_impedance(layout, mine, freq, stackup)
+        if len(layers) == 1 and np.all(to_slot.sum(axis=0) == 1):  # one plane: the crossings are the slots
+            z_slots = to_slot.T @ z_layer @ to_slot
+        else:
+            y_slots += to_slot.T @ np.linalg.inv(z_layer) @ to_slot
+    if z_slots is None:
+        z_slots = np.linalg.inv(y_slots)
+    positions = [k * STATION_MM for k in sorted(station_of)]
+    state_x = np.broadcast_to(np.eye(4, dtype=complex), (n_freq, 4, 4)).copy()
+    state_i = np.zeros((n_freq, 4, count), dtype=complex)
+    lhs = np.zeros((n_freq, count, count), dtype=complex)
+    rhs = np.zeros((n_freq, count, 4), dtype=complex)
+    for station, at in enumerate(positions):
+        if station:
+            step = section_transfer(lines, freq, -(at - positions[station - 1]) * 1e-3)
+            state_x, state_i = step @ state_x, step @ state_i
+        here = [(slot_of[station, t], t) for t in (0, 1) if (station, t) in slot_of]
+        for j, t in here:
+            lhs[:, j, :] = -state_i[:, 2 + t, :]
+            lhs[:, j, j] += 1.0
+            rhs[:, j, :] = state_x[:, 2 + t, :]
+        for j, t in here:
+            state_i[:, t, :] -= z_slots[:, j, :]
+    forward = state_x + state_i @ np.linalg.solve(lhs, rhs)
+    return np.linalg.inv(forward)
 
 
 def _admittance_from_transfer(t: np.ndarray) -> np.ndarray:
@@ -234,23 +232,6 @@ def _per_trace(blocks: np.ndarray, sign: float) -> np.ndarray:
     taking (V_P + sign V_N) / 2 and giving its current to P and sign x it to N."""
     share = np.array([[1.0, sign], [sign, 1.0]]) / 2
     return (blocks[:, :, None, :, None] * share[None, None, :, None, :]).reshape(len(blocks), 4, 4)
-
-
-def section_admittance(lines: CoupledLines, freq: np.ndarray, length_m: float) -> np.ndarray:
-    """Admittance (F, 4, 4) of a coupled-line section, nodes [P end 1, N end 1, P end 2, N end 2].
-
-    Each mode is a uniform line: y11 = Y0 coth(gamma l), y12 = -Y0 csch(gamma l) (Pozar, Microwave Engineering,
-    4th ed., sec. 4.4, from memory); the even mode is driven by (V_P + V_N) / 2 and carries equal strip currents,
-    the odd mode by (V_P - V_N) / 2 with opposite ones.
-    """
-    out = np.zeros((len(freq), 4, 4), dtype=complex)
-    for mode, mode_line, sign in (("even", lines.even, 1.0), ("odd", lines.odd, -1.0)):
-        gl = lines.gamma(freq, mode) * length_m
-        y11 = 1 / (mode_line.z0 * np.tanh(gl))
-        y12 = -1 / (mode_line.z0 * np.sinh(gl))
-        ends = np.stack([np.stack([y11, y12], -1), np.stack([y12, y11], -1)], -2)
-        out += _per_trace(ends, sign)
-    return out
 
 
 def _branches(layout: Layout) -> list[_Branch]:

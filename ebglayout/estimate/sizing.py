@@ -51,14 +51,9 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
     if style != "bridged":
         if bridge is not None:
             raise SpecError("cut.bridge", bridge, f"only the bridged style takes bridges (style is {style!r})")
-        long_side = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
-        if across is None:
-            along = long_side if aspect <= 1 else long_side / aspect
-        elif across <= long_side * (1 + 1e-12):
-            along = long_side
-        else:
-            raise SpecError("target", target_hz, f"is above the across mode of a {across:g} mm wide patch "
-                            f"({C0 / (2 * across * 1e-3 * math.sqrt(er)) / 1e9:.4g} GHz); narrow the patch")
+        # the common mode excites the along-the-pair mode TM10 (the across mode is odd about the pair), so the
+        # along size is set by the target whatever the aspect
+        along = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
         result = estimate_cell(_cell(dims(along), None), er, 1.0, None)
         return _result(style, target_hz, er, dims(along), result)
     if h is None or bridge is None:
