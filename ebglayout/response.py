@@ -127,6 +127,7 @@ def response_json(mm, *, source: str, target_hz: float | None, threshold_db: flo
     None without a target or outside the sweep), ``target_in_stopband``, ``sdd21_worst_db`` and
     ``sdc21_worst_db`` (the highest mode conversion over the sweep), ``caution``, then ``extra``'s keys in their
     order, then the curves ``freq_hz``, ``scc21_db``, ``sdd21_db``.  Hz rounded to 1 Hz, dB to 0.0001 dB.
+    Tolerance corners go in as ``extra={"tolerance": corners_json(...)}`` (the plot shades their common band).
     """
     if not isinstance(source, str) or not source.strip():
         raise EbgError(f"source = {source!r}: must name where the S-parameters came from")

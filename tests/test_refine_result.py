@@ -39,7 +39,7 @@ def test_refine_from_a_result_file_matches_refine_from_the_same_frequency(tmp_pa
     assert main(["refine", SPEC, "--result", str(path)]) == 0
     text = capsys.readouterr().out
     assert text.startswith(f"observed notch from {path} (model: test resonator network)")
-    assert "cut.patches = [" in text
+    assert "\npatches = [" in text
 
 
 def test_result_files_that_cannot_serve_are_one_line_errors(tmp_path, capsys):

@@ -18,6 +18,7 @@ from ..cells.shape import rectangle
 from ..errors import EbgError, SpecError
 from ..layout import PlacedCell
 from ..spec import STYLES, FilterSpec
+from ..units import format_length, spec_number
 from .band import CAUTION, estimate_cell
 from .cavity import C0
 
@@ -164,21 +165,27 @@ def _hz(value: float) -> float:
     return float(round(value, -3))
 
 
-def format_sizing(result: dict) -> str:
-    """Terminal summary of ``size_for_target``."""
-    a, b = result["patch"]
-    lines = [f"style {result['style']}: patch {a:.4g} mm along x {b:.4g} mm across for "
+def format_sizing(result: dict, units: str = "mm") -> str:
+    """Terminal summary of ``size_for_target``, lengths in ``units``, ending with a ``patch`` line to paste into
+    the [cut] table of a spec whose units are ``units``."""
+    a, b = (format_length(v, units) for v in result["patch"])
+    lines = [f"style {result['style']}: patch {a} along x {b} across for "
              f"{result['target_hz'] / 1e9:.4g} GHz at er {result['er']:g} ({result['governs']} governs)"]
     if result.get("bridge"):
         br = result["bridge"]
-        lines.append(f"bridges: {br['per_side']} per side, {br['width']:g} mm wide, {br['length']:g} mm long, "
-                     f"slot {br['slot']:g} mm; LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+        lines.append(f"bridges: {br['per_side']} per side, {format_length(br['width'], units)} wide, "
+                     f"{format_length(br['length'], units)} long, slot {format_length(br['slot'], units)}; "
+                     f"LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+    lines.append(f'paste into the spec\'s [cut] table (units = "{units}"):')
+    lines.append(f"patch = {_spec_pair(result['patch'], units)}")
     lines.append(f"caution: {result['caution']}")
     return "\n".join(lines)
 
 
-def format_refine(result: dict) -> str:
-    """Terminal summary of ``refine``: the correction factor and the new patch sizes as a cut.patches line."""
+def format_refine(result: dict, units: str = "mm") -> str:
+    """Terminal summary of ``refine``, lengths in the spec's ``units``: where the observed notch came from, the
+    correction factor and the new patch sizes as a ``patches`` line to paste into the spec's [cut] table in place
+    of ``patch`` and ``count``."""
     lines = []
     origin = result.get("observed_from")
     if origin:
@@ -188,6 +195,12 @@ def format_refine(result: dict) -> str:
     lines.append(f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
                  f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})")
     for cell in result["cells"]:
-        lines.append(f"  cell {cell['index']}: patch {cell['patch'][0]:.4g} x {cell['patch'][1]:.4g} mm")
-    lines.append("cut.patches = [" + ", ".join(f"[{a:g}, {b:g}]" for a, b in result["patches"]) + "]")
+        a, b = (format_length(v, units) for v in cell["patch"])
+        lines.append(f"  cell {cell['index']}: patch {a} along x {b} across")
+    lines.append(f'paste into the spec\'s [cut] table in place of patch and count (units = "{units}"):')
+    lines.append("patches = [" + ", ".join(_spec_pair(p, units) for p in result["patches"]) + "]")
     return "\n".join(lines)
+
+
+def _spec_pair(mm: list, units: str) -> str:
+    return "[" + ", ".join(spec_number(v, units) for v in mm) + "]"
