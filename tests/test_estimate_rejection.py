@@ -41,7 +41,7 @@ def test_corners_move_the_notch_as_the_cavity_does():
     data = rej.to_json()
     low, high = data["notch_spread_hz"]
     assert low == pytest.approx(min(notch.values()), abs=1.0) and high == pytest.approx(max(notch.values()), abs=1.0)
-    for band_low, band_high in data["guaranteed_stopband_hz"]:
+    for band_low, band_high in data["tolerance"]["guaranteed_stopband_hz"]:
         for curve in rej.corners.values():
             inside = (freq >= band_low) & (freq <= band_high)
             assert curve[inside].max() <= data["threshold_db"] + 1e-6
@@ -63,3 +63,23 @@ def test_target_covered_needs_one_band_holding_the_margin():
     assert make({"a": dip, "b": shifted}, 0.005).target_covered() is True
     assert make({"a": dip, "b": shifted}, 0.02).target_covered() is False
     assert Rejection(freq, None, {"a": dip}, None, -10.0, 0.005, {}).target_covered() is None
+
+
+def test_build_writes_a_touchstone_file_scikit_rf_reads_back(tmp_path):
+    import json
+
+    import skrf
+
+    from ebglayout.pipeline import build_to_folder
+    from ebglayout.response import db20
+    from ebglayout.sparams import mixed_mode
+
+    spec = load_spec(samples_folder() / "hx2_l0_tx_straight.toml")
+    build_to_folder(spec, tmp_path)
+    net = skrf.Network(str(tmp_path / f"{spec.name}.s4p"))
+    report = json.loads((tmp_path / f"{spec.name}.report.json").read_text())
+    model = report["estimate"]["model"]
+    assert net.nports == 4 and len(net.f) == len(model["freq_hz"])
+    assert np.allclose(db20(mixed_mode(net).scc21), model["scc21_db"], atol=1e-3)
+    assert "not a full-wave run" in model["model_caution"]
+    assert (tmp_path / f"{spec.name}.response.svg").read_text().count("Scc21") >= 1

@@ -509,14 +509,14 @@ def notch_target(layout: Layout, ctx: CheckContext) -> RuleResult:
         r.checked += 1
         r.unit, r.limit = "%", 100 * spec.target_margin
         low, high = spec.target_hz * (1 - spec.target_margin), spec.target_hz * (1 + spec.target_margin)
-        bands = data["guaranteed_stopband_hz"]
+        bands = data["tolerance"]["guaranteed_stopband_hz"]
         # how much of target +- margin the nearest guaranteed band leaves uncovered, in % of the target
         short = min((100 * (max(0.0, a - low) + max(0.0, high - b)) / spec.target_hz for a, b in bands),
                     default=100.0)
         r.see(short, lower_is_worse=False)
         level = f"{spec.rejection_db:g} dB"
         text = ", ".join(f"{a / 1e9:.4g}-{b / 1e9:.4g} GHz" for a, b in bands) or "none"
-        r.note = f"model's guaranteed stopband at {level} over {len(data['corners'])} corners: {text}"
+        r.note = f"model's guaranteed stopband at {level} over the nominal and {len(data['tolerance']['corners']) - 1} corners: {text}"
         if not data["target_covered"]:
             r.add("warning", f"the model's guaranteed stopband at {level} ({text}) does not cover the target "
                   f"{spec.target_hz / 1e9:.4g} GHz +-{spec.target_margin:.1%} at every tolerance corner (circuit "

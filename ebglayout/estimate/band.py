@@ -269,10 +269,10 @@ def format_rejection(data: dict) -> list[str]:
                    f"{format_hz(cc['stopband_hz'][1])}")
     low, high = data["notch_spread_hz"]
     tol = data["tolerances"]
-    out.append(f"model: over {len(data['corners'])} corners (er +-{tol['er']:.0%}, h and pair_h +-{tol['h']:.0%}, "
+    out.append(f"model: over the nominal and {len(data['tolerance']['corners']) - 1} corners (er +-{tol['er']:.0%}, h and pair_h +-{tol['h']:.0%}, "
                f"etch +-{tol['etch_mm']:g} mm): notch spread {format_hz(low)} .. {format_hz(high)}, shallowest "
-               f"depth {data['worst_depth_db']:.1f} dB")
-    bands = data["guaranteed_stopband_hz"]
+               f"depth {data['tolerance']['worst_depth_db']:.1f} dB")
+    bands = data["tolerance"]["guaranteed_stopband_hz"]
     out.append(f"model: guaranteed stopband at {level}: " + (", ".join(
         f"{format_hz(a)} .. {format_hz(b)}" for a, b in bands) if bands else "none (no frequency is rejected "
         "at every corner)"))

@@ -42,15 +42,15 @@ class Rejection:
     tolerances: dict
 
     def to_json(self) -> dict:
-        """The result object (``response.response_json``) with the corners, the notch spread and the guaranteed
-        stopband, and whether it covers the target with its margin."""
+        """The result object (``response.response_json``) with the notch spread, the corners and their guaranteed
+        stopband under ``tolerance`` (``response.corners_json``), and whether it covers the target with its
+        margin."""
         corners = corners_json(self.freq_hz, self.corners, self.threshold_db)
         notches = [c["notch_hz"] for c in corners["corners"]]
         extra = {"model_caution": MODEL_CAUTION, "tolerances": self.tolerances,
                  "notch_spread_hz": [min(notches), max(notches)],
-                 "guaranteed_stopband_hz": corners["guaranteed_stopband_hz"],
                  "target_margin": self.margin, "target_covered": self.target_covered(corners),
-                 "corners": corners["corners"], "worst_depth_db": corners["worst_depth_db"]}
+                 "tolerance": corners}
         return response_json(mixed_mode(self.network), source=SOURCE, target_hz=self.target_hz,
                              threshold_db=self.threshold_db, extra=extra)
 
