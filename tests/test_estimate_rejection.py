@@ -83,3 +83,45 @@ def test_build_writes_a_touchstone_file_scikit_rf_reads_back(tmp_path):
     assert np.allclose(db20(mixed_mode(net).scc21), model["scc21_db"], atol=1e-3)
     assert "not a full-wave run" in model["model_caution"]
     assert (tmp_path / f"{spec.name}.response.svg").read_text().count("Scc21") >= 1
+
+
+@pytest.mark.parametrize("kwargs", [
+    dict(target_hz=16e9, er=4.1, pair=(0.12, 0.15)),
+    dict(target_hz=8e9, er=4.1, pair=(0.12, 0.15), style="bridged", aspect=1.2, bridge=(0.12, 0.6, 1)),
+])
+def test_size_with_model_lands_the_modelled_notch_on_the_target(kwargs):
+    from ebglayout.checks import run_checks
+    from ebglayout.estimate.network import filter_network
+    from ebglayout.estimate.sizing import MODEL_TOLERANCE, size_with_model
+    from ebglayout.response import db20
+    from ebglayout.sparams import mixed_mode
+    from ebglayout.spec import spec_from_dict
+
+    sized = size_with_model(**kwargs)
+    target = kwargs["target_hz"]
+    assert sized["model_hz"] == pytest.approx(target, rel=MODEL_TOLERANCE)
+    # rebuilt independently from the printed size: the same row, the same notch, and the checks pass
+    along, across = sized["patch"]
+    width, spacing = kwargs["pair"]
+    cut = {"style": kwargs.get("style", "straight"), "patch": [along, across], "count": 3, "slot": 0.15, "web": 0.3}
+    if "bridge" in kwargs:
+        w, length, per_side = kwargs["bridge"]
+        cut["bridge"] = {"width": w, "length": length, "per_side": per_side}
+    layout = build_layout(spec_from_dict({
+        "target": target, "pair": {"width": width, "spacing": spacing, "path": [[0, 0], [3 * (along + 0.45) + 10, 0]]},
+        "cut": cut, "stackup": {"er": kwargs["er"], "h": 0.1}}))
+    freq = np.linspace(0.6 * target, 1.4 * target, 1001)
+    notch = summarize(freq, db20(mixed_mode(filter_network(layout, freq)).scc21)).notch_hz
+    assert notch == pytest.approx(target, rel=2 * MODEL_TOLERANCE)
+    assert not run_checks(layout).errors
+    assert across >= 2 * (width + spacing / 2 + 0.4) - 1e-9
+
+
+def test_size_command_with_the_pair_prints_the_model_notch(capsys):
+    from ebglayout.cli import main
+
+    assert main(["size", "--target", "16GHz", "--er", "4.1", "--pair", "0.12,0.15"]) == 0
+    out = capsys.readouterr().out
+    assert "circuit model (not a full-wave run)" in out and "notch 16 GHz" in out and "caution:" in out
+    assert main(["size", "--target", "16GHz", "--er", "4.1", "--pair", "0.12"]) == 2
+    assert "--pair = 0.12" in capsys.readouterr().err

@@ -14,7 +14,7 @@ from shapely.affinity import affine_transform
 from shapely.geometry import LineString, Polygon
 from shapely.ops import unary_union
 
-from ..crossing import Crossing
+from ..crossing import TOUCH_MM, Crossing
 from ..layout import Layout, effective_permittivity, skew_ps
 from ..spec import FilterSpec, TrackObstacle, ViaObstacle
 from ..units import format_length
@@ -346,7 +346,7 @@ def cell_overlap(layout: Layout, ctx: CheckContext) -> RuleResult:
         adjacent = abs(b.index - a.index) == 1
         if spec.web > 0 and adjacent:
             r.see(gap)
-            if gap < spec.web - 1e-6:
+            if gap < spec.web - TOUCH_MM:  # each cell is snapped to the 1 nm grid on its own
                 r.add("error", f"cells {a.index} and {b.index}: web {shown(layout, gap)} where cut.web = {shown(layout, spec.web)}; "
                       "their slots merge", b.centre, gap, spec.web)
     return r
