@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import argparse
 import platform
-import statistics
 import sys
 import time
 from pathlib import Path
@@ -21,23 +20,16 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "benchmarks"))
 
 from ebglayout.estimate.band import estimate_layout  # noqa: E402
 from ebglayout.estimate.network import filter_network  # noqa: E402
 from ebglayout.estimate import rejection  # noqa: E402
 from ebglayout.layout import build_layout  # noqa: E402
 from ebglayout.spec import load_spec  # noqa: E402
+from board_bench import time_median  # noqa: E402  (one median timer for the benchmarks)
 
 SAMPLES = ("hx2_l0_tx_straight", "hx2_l2_tx_bridged", "hx2_l1_rx_folded", "hx2_l3_rx_stripline")
-
-
-def median_time(job, runs: int) -> float:
-    times = []
-    for _ in range(runs):
-        start = time.perf_counter()
-        job()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
 
 
 def main() -> None:
@@ -56,13 +48,13 @@ def main() -> None:
         start = time.perf_counter()
         network = filter_network(layout, freq)
         cold = time.perf_counter() - start
-        warm = median_time(lambda: filter_network(layout, freq), args.runs)
+        warm = time_median(args.runs, lambda: filter_network(layout, freq))
 
         def reference():
             copy = network.copy()
             copy.se2gmm(p=2)
 
-        ref = median_time(reference, args.runs)
+        ref = time_median(args.runs, reference)
         corners_freq = rejection.sweep(layout, [layout.spec.target_hz] + [c.notch_hz for c in est.cells])
 
         def corners():
@@ -70,7 +62,7 @@ def main() -> None:
             rejection.model_rejection(layout, corners_freq)
 
         corners()  # the etched layouts' cavity modes are solved and cached on the first run, as in a real run
-        all_corners = median_time(corners, max(1, args.runs // 2))
+        all_corners = time_median(max(1, args.runs // 2), corners)
         print(f"{name:<22} {cold * 1e3:9.1f}ms {warm * 1e3:6.1f}ms {ref * 1e3:5.1f}ms {warm / ref:6.2f} "
               f"{all_corners:7.2f}s {all_corners / ref:6.0f}")
     print("4-port: 2,000 frequencies (target < 20 ms); corners: the nominal and 16 corners at the estimate's "
