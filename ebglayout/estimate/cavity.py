@@ -28,6 +28,8 @@ from ..errors import EbgError
 
 C0 = 299_792_458.0
 """Speed of light in vacuum, m/s (exact, SI definition)."""
+MU0 = 1.25663706212e-6
+"""Vacuum permeability, H/m (CODATA 2018)."""
 
 _MIN_CELLS = 8
 _MAX_CELLS = 400
@@ -291,8 +293,6 @@ class PortModes:
         return 1j * omega[:, None, None] * MU0 * h_mm * 1e-3 * series
 
 
-MU0 = 1.25663706212e-6
-"""Vacuum permeability, H/m (CODATA 2018)."""
 _TAIL_MODES = 240
 """Highest mode index per axis summed into a rectangle's quasi-static tail (the port averaging makes the
 terms fall as 1/n^4 beyond the port width's own scale)."""

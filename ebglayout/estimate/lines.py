@@ -29,12 +29,10 @@ import numpy as np
 
 from ..errors import EbgError
 from ..stackup import Stackup
-from .cavity import C0
+from .cavity import C0, MU0
 
 ETA0 = 376.730313668
 """Impedance of free space, ohm (CODATA 2018)."""
-MU0 = 1.25663706212e-6
-"""Vacuum permeability, H/m (CODATA 2018)."""
 COPPER_S_PER_M = 5.8e7
 """Conductivity of annealed copper, S/m (common practice)."""
 
