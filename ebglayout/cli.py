@@ -61,7 +61,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--jobs", type=int, default=0, metavar="N",
                    help="with --board: processes sharing the filters (default: one per usable CPU; 1: no workers)")
 
-    p = command("estimate", "estimate where the drawn cut notches (cavity modes, bridged-cell LC, band)")
+    p = command("estimate", "estimate the drawn cut's notch: cavity modes, bridged-cell LC, and the model's Scc21/Sdd21 over the tolerance corners")
     p.add_argument("spec", type=Path)
     p.add_argument("--json", action="store_true", help="print JSON")
 
@@ -72,6 +72,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
     p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE]")
     p.add_argument("--slot", default="0.15mm", help="slot width (default 0.15 mm)")
+    p.add_argument("--pair", help="WIDTH,SPACING of the traces: size so the circuit model's notch lands on the "
+                   "target, with room for the pair, and check the cell (without it: the formula's size)")
+    p.add_argument("--pair-h", help="with --pair: dielectric between the pair and the cut plane (default --h)")
+    p.add_argument("--count", type=int, default=3, help="with --pair: cells in the modelled row (default 3)")
     p.add_argument("--units", default="mm", choices=sorted(LENGTH_UNITS_MM),
                    help="unit of bare lengths given here and of every length printed (default mm)")
     p.add_argument("--json", action="store_true", help="print JSON")
@@ -162,10 +166,10 @@ def _demo(args) -> int:
     for result in results:
         c = result.checks
         est = result.estimate.to_json() if result.estimate is not None else None
-        band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
+        band = f"{est['notch_spread']['low_hz'] / 1e9:.2f}-{est['notch_spread']['high_hz'] / 1e9:.2f} GHz" if est else "-"
         print(f"{result.name:<22} {result.layout.spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
               f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {format_length(c.min_slot_width, c.units)}  "
-              f"notch band {band}  "
+              f"notch spread {band}  "
               f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / result.name}")
         worst = max(worst, 1 if c.errors else 0)
     print("Estimates are for placement and review; confirm with a field solve and measurement.")
@@ -311,7 +315,7 @@ def _estimate(args) -> int:
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    estimate = estimate_layout(build_layout(spec))
+    estimate = estimate_layout(build_layout(spec), model=True)
     print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate, spec.units))
     return 0
 
@@ -328,8 +332,23 @@ def _size(args) -> int:
     sizes = {k: parse_length(v, f"--{k}", args.units) for k, v in (("h", args.h), ("slot", args.slot))}
     if min(sizes.values()) <= 0:
         raise EbgError(f"--h = {args.h}, --slot = {args.slot}: both must be > 0")
-    result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style,
-                             h=sizes["h"], bridge=bridge, slot=sizes["slot"])
+    target = parse_frequency(args.target, "--target")
+    if args.pair:
+        from .estimate.sizing import size_with_model
+
+        parts = args.pair.split(",")
+        if len(parts) != 2:
+            raise EbgError(f"--pair = {args.pair}: must be WIDTH,SPACING, lengths in {args.units} unless they say")
+        pair = (parse_length(parts[0], "--pair width", args.units), parse_length(parts[1], "--pair spacing",
+                                                                                  args.units))
+        pair_h = parse_length(args.pair_h, "--pair-h", args.units) if args.pair_h else None
+        if not 1 <= args.count <= 50:
+            raise EbgError(f"--count = {args.count}: must be between 1 and 50")
+        result = size_with_model(target, args.er, pair, style=args.style, h=sizes["h"], pair_h=pair_h,
+                                 bridge=bridge, slot=sizes["slot"], count=args.count)
+    else:
+        result = size_for_target(target, args.er, style=args.style, h=sizes["h"], bridge=bridge,
+                                 slot=sizes["slot"])
     print(json.dumps(result, indent=2) if args.json else format_sizing(result, args.units))
     return 0
 

@@ -17,7 +17,8 @@ from .outputs import StagedOutputs
 from .report import report_data, to_json_text
 from .spec import FilterSpec
 
-OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png", ".kicad_mod", ".kicad_dru", ".report.json")
+OUTPUT_SUFFIXES = (".dxf", ".gds", ".svg", ".png", ".kicad_mod", ".kicad_dru", ".report.json", ".s4p",
+                   ".response.svg", ".response.png")
 
 
 @dataclass(frozen=True)
@@ -38,7 +39,7 @@ def make_filter(spec: FilterSpec, context=None) -> FilterResult:
     from .estimate.band import estimate_layout
 
     layout = build_layout(spec)
-    estimate = estimate_layout(layout)
+    estimate = estimate_layout(layout, model=True)
     checks = run_checks(layout, context, estimate=estimate)
     return FilterResult(layout, checks, estimate, context)
 
@@ -96,10 +97,27 @@ def write_filter(result: FilterResult, staged: StagedOutputs, folder: str = "", 
         staged.write_text(names[".kicad_dru"], rules_text(result.layout))
         staged.write_text(names[".report.json"],
                           to_json_text(report_data(result.layout, result.checks, result.estimate)))
+        _write_model(result, staged, names, notch)
     finally:
         done = child is None or _succeeded(child)  # always waited for: no file may appear after a failure here
     if not done:
         dxf()
+
+
+def _write_model(result: FilterResult, staged: StagedOutputs, names: dict, notch: dict | None) -> None:
+    """The circuit model's 4-port (.s4p) and its Scc21/Sdd21 plot, when the estimate carries the model."""
+    rejection = getattr(result.estimate, "rejection", None)
+    if rejection is None:
+        return
+    from .estimate.network import SOURCE
+    from .estimate.rejection import MODEL_CAUTION
+    from .export.response_plot import write_response_plot
+    from .sparams import touchstone_text
+
+    staged.write_text(names[".s4p"], touchstone_text(
+        rejection.network, [f"{SOURCE}, filter {result.name}", "nominal stack-up; " + MODEL_CAUTION]))
+    with staged.writing(names[".response.svg"]) as svg, staged.writing(names[".response.png"]) as png:
+        write_response_plot(notch["model"], svg, png, name=result.name)
 
 
 def usable_cpus() -> int:

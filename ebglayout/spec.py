@@ -85,6 +85,8 @@ PARAMETERS: tuple[Parameter, ...] = (
               "FR-4-class laminates at GHz)"),
     Parameter("stackup.er_tolerance", "number", 0.05, "relative tolerance of er for the estimate sweep (0.05 = +-5 %)"),
     Parameter("stackup.h_tolerance", "number", 0.10, "relative tolerance of h for the estimate sweep (0.10 = +-10 %)"),
+    Parameter("stackup.etch_tolerance", "length", 0.025, "etch tolerance for the model's corners: slots this much "
+              "wider or narrower, bridges and patches the reverse (0.025 mm: common practice)"),
     Parameter("rules.min_slot", "length", 0.1, "least slot width the fab can etch"),
     Parameter("rules.min_copper", "length", 0.1, "least copper neck (web, bridge, patch) the fab can hold"),
     Parameter("rules.corner_margin", "length", 0.4, "least distance from a trace crossing to a patch corner"),
@@ -95,7 +97,12 @@ PARAMETERS: tuple[Parameter, ...] = (
     Parameter("rules.skew_limit_ps", "number", 1.0, "largest P/N delay difference the cut and a folded route may add, in ps"),
     Parameter("rules.bridge_keep", "length", None, "least distance from a bridge to a trace (default 3 x stackup.h)"),
     Parameter("rules.edge_clearance", "length", 0.5, "least distance from the cut to the plane outline"),
-    Parameter("rules.target_tolerance", "number", 0.15, "relative band around target the light notch check accepts"),
+    Parameter("rules.target_tolerance", "number", 0.15, "relative band around target the light notch check accepts "
+              "(used when no model estimate is made, e.g. re-checks of a board)"),
+    Parameter("rules.rejection_db", "number", -10.0, "Scc21 level in dB at or below which the model counts a "
+              "frequency as rejected (about 10 dB of rejection: common practice)"),
+    Parameter("rules.target_margin", "number", 0.005, "relative spread of the target harmonic the model's guaranteed "
+              "stopband must cover (0.005: a 0.5 % spread-spectrum clock, common practice)"),
     Parameter("gds", "layermap", (), "GDSII layer map: {\"In1.Cu/slot\" = [layer, datatype], ...}"),
     Parameter("obstacles.tracks", "tracks", (), "other copper: [{path=[[x,y],...], width=, layer=, net=}]"),
     Parameter("obstacles.vias", "vias", (), "vias and pads: [{at=[x,y], diameter=, net=}] (through all layers)"),
@@ -178,6 +185,9 @@ class FilterSpec:
     bridge_keep: float
     edge_clearance: float
     target_tolerance: float
+    etch_tolerance: float
+    rejection_db: float
+    target_margin: float
     target_hz: float | None
     gds_layers: tuple[tuple[str, int, int], ...] = ()
     track_obstacles: tuple[TrackObstacle, ...] = ()
@@ -286,6 +296,9 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
         bridge_keep=value("rules.bridge_keep") if flat.get("rules.bridge_keep") is not None else 3 * h,
         edge_clearance=value("rules.edge_clearance"),
         target_tolerance=value("rules.target_tolerance"),
+        etch_tolerance=value("stackup.etch_tolerance"),
+        rejection_db=value("rules.rejection_db"),
+        target_margin=value("rules.target_margin"),
         target_hz=value("target"),
         gds_layers=value("gds"),
         track_obstacles=value("obstacles.tracks"),
@@ -378,7 +391,7 @@ def _parse_layer(reader: _Reader, key: str, raw: object) -> str:
 
 def _parse_length(reader: _Reader, key: str, raw: object) -> float:
     zero_ok = key in ("cut.web", "cut.start", "rules.corner_margin", "rules.symmetry", "rules.edge_clearance",
-                      "rules.bridge_keep", "cut.turn_clearance")
+                      "rules.bridge_keep", "cut.turn_clearance", "stackup.etch_tolerance")
     return reader.length(key, raw, allow_zero=zero_ok)
 
 
@@ -392,6 +405,8 @@ def _parse_number(reader: _Reader, key: str, raw: object) -> float:
         "rules.min_angle": (0.0, 90.0, "between 0 and 90 degrees"),
         "rules.skew_limit_ps": (0.0, 1e4, "between 0 and 10000 ps"),
         "rules.target_tolerance": (0.0, 1.0, "between 0 and 1"),
+        "rules.rejection_db": (-60.0, -1.0, "between -60 and -1 dB"),
+        "rules.target_margin": (0.0, 0.5, "between 0 and 0.5"),
     }
     low, high, text = limits[key]
     if isinstance(raw, bool) or not isinstance(raw, (int, float)) or not math.isfinite(raw) or not low <= raw <= high:

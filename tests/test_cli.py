@@ -31,12 +31,13 @@ def test_demo_writes_every_output_for_every_sample(tmp_path, capsys):
         name = load_spec(path).name
         folder = out / name
         assert sorted(p.name for p in folder.iterdir()) == sorted(
-            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru", "report.json")])
+            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru", "report.json", "s4p",
+                                         "response.svg", "response.png")])
         report = json.loads((folder / f"{name}.report.json").read_text())
         assert set(report) == REPORT_KEYS
         assert report["crossings"]["P"] == report["crossings"]["N"] > 0
         assert all(set(f) == FINDING_KEYS for f in report["findings"])
-        assert report["estimate"]["band"]["low_hz"] < report["estimate"]["band"]["high_hz"]
+        assert report["estimate"]["notch_spread"]["low_hz"] < report["estimate"]["notch_spread"]["high_hz"]
         assert name in printed
     # a second run refuses to overwrite, --force replaces
     assert main(["demo", "--out", str(out)]) == 2
@@ -56,7 +57,7 @@ def test_build_is_byte_stable_across_processes(tmp_path, path):
         subprocess.run([sys.executable, "-m", "ebglayout", "build", str(path), "--out", str(tmp_path / folder)],
                        env=env, check=True, capture_output=True)
     written = sorted(f.name for f in (tmp_path / "a").iterdir())
-    assert len(written) == 7
+    assert len(written) == 10
     for name in written:
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes(), name
 

@@ -31,7 +31,7 @@ SVG_NS = "{http://www.w3.org/2000/svg}"
 NOTCH = {
     "cells": [{"modes": [{"f_hz": 7.7e9}, {"f_hz": 15.1e9}], "lc_f_hz": 8.2e9, "notch_hz": 8.2e9},
               {"modes": [{"f_hz": 7.4e9}]}, {"modes": [{"f_hz": 7.1e9}], "lc_f_hz": None}],
-    "band": {"low_hz": 6.8e9, "high_hz": 9.2e9},
+    "notch_spread": {"low_hz": 6.8e9, "high_hz": 9.2e9},
     "target_hz": 8e9,
 }
 NUMBER = re.compile(r"-?\d+(?:\.\d+)?")

@@ -12,6 +12,8 @@ from __future__ import annotations
 import math
 from types import SimpleNamespace
 
+import numpy as np
+
 
 from ..cells.bridged import bridged_cell
 from ..cells.shape import rectangle
@@ -52,14 +54,9 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
     if style != "bridged":
         if bridge is not None:
             raise SpecError("cut.bridge", bridge, f"only the bridged style takes bridges (style is {style!r})")
-        long_side = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
-        if across is None:
-            along = long_side if aspect <= 1 else long_side / aspect
-        elif across <= long_side * (1 + 1e-12):
-            along = long_side
-        else:
-            raise SpecError("target", target_hz, f"is above the across mode of a {across:g} mm wide patch "
-                            f"({C0 / (2 * across * 1e-3 * math.sqrt(er)) / 1e9:.4g} GHz); narrow the patch")
+        # the common mode excites the along-the-pair mode TM10 (the across mode is odd about the pair), so the
+        # along size is set by the target whatever the aspect
+        along = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
         result = estimate_cell(_cell(dims(along), None), er, 1.0, None)
         return _result(style, target_hz, er, dims(along), result)
     if h is None or bridge is None:
@@ -181,6 +178,16 @@ def format_sizing(result: dict, units: str = "mm") -> str:
         lines.append(f"bridges: {br['per_side']} per side, {format_length(br['width'], units)} wide, "
                      f"{format_length(br['length'], units)} long, slot {format_length(br['slot'], units)}; "
                      f"LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+    if result.get("model_hz"):
+        lines.append(f"circuit model (not a full-wave run), {result['count']} cells, pair "
+                     f"{format_length(result['pair'][0], units)} / {format_length(result['pair'][1], units)}: notch "
+                     f"{result['model_hz'] / 1e9:.4g} GHz (the cell formula gives this size {result['formula_hz'] / 1e9:.4g} GHz); "
+                     "the cell passes the checks")
+        across_hz = C0 / (2 * result["patch"][1] * 1e-3 * math.sqrt(result["er"]))
+        if result["patch"][1] > result["patch"][0]:
+            lines.append(f"note: the patch is wider across than along; its across mode ({across_hz / 1e9:.4g} GHz) "
+                         "is not excited by the common mode but costs the differential signal there (see Sdd21 in "
+                         "estimate)")
     lines.append(f'paste into the spec\'s [cut] table (units = "{units}"):')
     lines.append(f"patch = {_spec_pair(result['patch'], units)}")
     lines.append(f"caution: {result['caution']}")
@@ -209,3 +216,82 @@ def format_refine(result: dict, units: str = "mm") -> str:
 
 def _spec_pair(mm: list, units: str) -> str:
     return "[" + ", ".join(spec_number(v, units) for v in mm) + "]"
+
+
+MODEL_TOLERANCE = 0.002
+"""``size_with_model`` stops when the modelled notch is this close to the target (relative)."""
+
+
+def size_with_model(target_hz: float, er: float, pair: tuple[float, float], style: str = "straight",
+                    aspect: float = DEFAULT_ASPECT, h: float = 0.1, pair_h: float | None = None,
+                    bridge: tuple[float, float, int] | None = None, slot: float = 0.15, count: int = 3,
+                    tan_d: float = 0.02, corner_margin: float = 0.4) -> dict:
+    """Patch [along, across] (mm) whose notch in the circuit model (``rejection``) lands on ``target_hz``.
+
+    ``pair`` = (width, spacing) of the traces: the across size is at least what keeps both traces
+    ``corner_margin`` from the patch corners.  Starts from ``size_for_target`` (the cavity or LC formula), then
+    builds a row of ``count`` cells on a straight pair over one cut plane (pair height ``pair_h``, default
+    ``h``), reads the model's Scc21 notch and corrects the along size by the secant method on log(size) against
+    log(notch) until within ``MODEL_TOLERANCE``.  The result is checked with the project's own rules; a size
+    they reject raises an error naming the rules.  Returns ``size_for_target``'s keys plus "formula_hz" (the
+    per-cell estimate of the final size), "model_hz", "pair", "count" and "iterations".
+    """
+    from ..checks import run_checks
+    from ..layout import build_layout
+    from ..response import db20, summarize
+    from ..sparams import mixed_mode
+    from ..spec import spec_from_dict
+    from .network import filter_network
+
+    width, spacing = pair
+    _check(pair_width=width, pair_spacing=spacing)
+    across_min = 2 * (width + spacing / 2 + corner_margin)
+    first = size_for_target(target_hz, er, style, aspect, h, bridge, slot if bridge else None)
+    along, across = first["patch"]
+    across = max(across, across_min)
+
+    def build(along_mm: float):
+        cut = {"style": style, "patch": [round(along_mm, 6), round(across, 6)], "count": count, "slot": slot,
+               "web": 0.3}
+        if bridge is not None:
+            cut["bridge"] = {"width": bridge[0], "length": bridge[1], "per_side": bridge[2]}
+        run = count * (along_mm + slot + 0.3) + 10.0
+        raw = {"name": "sized", "target": target_hz,
+               "pair": {"width": width, "spacing": spacing, "path": [[0, 0], [round(run, 6), 0]]},
+               "cut": cut, "stackup": {"er": er, "h": h, "pair_h": pair_h or h, "tan_d": tan_d}}
+        return build_layout(spec_from_dict(raw))
+
+    def model_notch(along_mm: float) -> tuple[float, object]:
+        layout = build(along_mm)
+        freq = np.linspace(0.6 * target_hz, 1.4 * target_hz, 1001)
+        scc = db20(mixed_mode(filter_network(layout, freq)).scc21)
+        return summarize(freq, scc).notch_hz, layout
+
+    points = [(along, model_notch(along))]
+    iterations = 1
+    while abs(points[-1][1][0] / target_hz - 1) > MODEL_TOLERANCE and iterations < 8:
+        (a1, (f1, _)) = points[-1]
+        if len(points) == 1:
+            a2 = a1 * f1 / target_hz  # a cavity mode scales as 1 / size
+        else:
+            (a0, (f0, _)) = points[-2]
+            slope = math.log(f1 / f0) / math.log(a1 / a0) if a1 != a0 and f1 != f0 else -1.0
+            a2 = a1 * math.exp(math.log(target_hz / f1) / (slope if slope < -0.05 else -1.0))
+        points.append((a2, model_notch(a2)))
+        iterations += 1
+    along, (notch, layout) = points[-1]
+    report = run_checks(layout)
+    if report.errors:
+        rules = sorted({f.rule for f in report.errors})
+        raise SpecError("pair", list(pair), f"the sized cell fails the checks {', '.join(rules)}; widen the patch "
+                        "(aspect) or change the pair")
+    shape = None if bridge is None else SimpleNamespace(slot=slot, bridge_width=bridge[0], bridge_length=bridge[1],
+                                                        bridges_per_side=bridge[2])
+    cell = estimate_cell(_cell((along, across), shape), er, h, bridge[1] if bridge else None)
+    out = _result(style, target_hz, er, (along, across), cell)
+    out.update({"formula_hz": _hz(cell.notch_hz), "model_hz": _hz(notch), "pair": [width, spacing],
+                "count": count, "iterations": iterations})
+    if bridge is not None:
+        out.update({"h_mm": h, "bridge": {"width": bridge[0], "length": bridge[1], "per_side": bridge[2],
+                                          "slot": slot}, "lc_f_hz": _hz(cell.lc_f_hz)})
+    return out

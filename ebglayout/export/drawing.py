@@ -664,7 +664,7 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
     governing notch, each where the estimate gives it."""
     left, top, right, bottom = frame
     cells = notch.get("cells", [])
-    band = notch.get("band") or {}
+    band = notch.get("notch_spread") or {}
     has_band = band.get("low_hz") is not None and band.get("high_hz") is not None
     target = notch.get("target_hz")
     points: dict[str, list[tuple[int, float]]] = {"mode": [], "lc": [], "notch": []}
@@ -702,7 +702,7 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
         y_low = min(bottom, max(top, px(1, band["low_hz"] / 1e9)[1]))
         y_high = min(bottom, max(top, px(1, band["high_hz"] / 1e9)[1]))
         items.append(_rect(left, y_high, right, y_low, COLOURS["band"], role="band"))
-        entries.append(("band", ("rect", COLOURS["band"], {})))
+        entries.append(("notch spread", ("rect", COLOURS["band"], {})))
     if target:
         y = px(1, target / 1e9)[1]
         items.append(Polyline(np.array([(left, y), (right, y)]), COLOURS["target"], 1.5, (6.0, 3.0), role="target"))

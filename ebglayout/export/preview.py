@@ -20,7 +20,7 @@ def write_preview(layout: Layout, svg_path: str | Path, png_path: str | Path, fi
     """Draw the layout and write it as SVG and PNG (each atomically); return both paths.
 
     ``notch`` (optional): {"cells": [{"modes": [{"f_hz": ...}, ...], "lc_f_hz": ..., "notch_hz": ...}, ...],
-    "band": {"low_hz": ..., "high_hz": ...}, "target_hz": ...} adds a per-cell notch plot.
+    "notch_spread": {"low_hz": ..., "high_hz": ...}, "target_hz": ...} adds a per-cell notch plot.
     """
     items = build_drawing(layout, findings, notch)
     return write_svg(items, drawing_title(layout), svg_path), write_png(items, png_path)
