@@ -1,0 +1,233 @@
+"""Reading a transmission curve: notch, depth and stopband, and the result file of a simulated or modelled filter.
+
+One home for both the full-wave result and the fast model, so their summaries compare key for key.  Curves are
+|S| in dB on a frequency grid in Hz; a stopband is where the curve is at or below a threshold (-10 dB unless
+told), its edges interpolated linearly in dB between the grid points either side.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from . import CAUTION
+from .errors import EbgError
+
+DEFAULT_THRESHOLD_DB = -10.0
+"""Stopband threshold: about 10 dB of common-mode rejection is what typical practice asks for (common practice)."""
+DB_FLOOR = -300.0
+"""dB value given to |S| = 0 (an ideal notch exactly on a grid point), so every number stays finite."""
+HZ_DECIMALS = 0
+"""Frequencies in result files are rounded to 1 Hz."""
+DB_DECIMALS = 4
+"""dB values in result files are rounded to 0.0001 dB."""
+RESPONSE_CAUTION = ("S-parameters from a simulation or a model are estimates of one drawn geometry; " + CAUTION)
+PORT_ORDER_NOTE = "single-ended ports: 1 P near end, 2 N near end, 3 P far end, 4 N far end"
+
+
+def db20(s: np.ndarray) -> np.ndarray:
+    """20 log10 |s|, with |s| = 0 given DB_FLOOR."""
+    mag = np.abs(np.asarray(s))
+    with np.errstate(divide="ignore"):
+        return np.maximum(20.0 * np.log10(mag), DB_FLOOR)
+
+
+@dataclass(frozen=True)
+class CurveSummary:
+    """What one curve says: the notch (deepest grid point), its depth and the stopband around it.
+
+    ``depth_db`` is the curve's value at the notch (dB; -25 means 25 dB of rejection).  ``notch_at_grid_edge``
+    is True when the deepest point is the first or last frequency, so the true notch may lie outside the
+    sweep; ``stopband_clipped`` says per edge (low, high) whether the stopband runs into the end of the sweep, so
+    that edge is the sweep's limit, not the curve's.
+    """
+
+    notch_hz: float
+    depth_db: float
+    stopband_hz: tuple[float, float] | None
+    threshold_db: float
+    notch_at_grid_edge: bool = False
+    stopband_clipped: tuple[bool, bool] = (False, False)
+
+    @property
+    def stopband_width_hz(self) -> float:
+        return 0.0 if self.stopband_hz is None else self.stopband_hz[1] - self.stopband_hz[0]
+
+    def as_json(self) -> dict:
+        band = None if self.stopband_hz is None else [_hz(self.stopband_hz[0]), _hz(self.stopband_hz[1])]
+        return {"notch_hz": _hz(self.notch_hz), "depth_db": _db(self.depth_db), "stopband_hz": band,
+                "threshold_db": _db(self.threshold_db), "notch_at_grid_edge": self.notch_at_grid_edge,
+                "stopband_clipped": list(self.stopband_clipped)}
+
+
+def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> CurveSummary:
+    """Notch, depth and stopband of one curve (|S| in dB on an increasing grid in Hz).
+
+    The notch is the deepest grid point (its frequency is known to the grid spacing).  The stopband is the one
+    run of the curve at or below ``threshold_db`` that holds the notch, its edges interpolated linearly in dB;
+    when a curve has two separate dips, the stopband is the one around the deeper notch, and the other dip is
+    not reported (``guaranteed_stopband`` lists every band).  None when the curve never reaches the threshold.
+    """
+    freq, curve = _curve(freq_hz, s_db, "s_db")
+    _check_threshold(threshold_db)
+    k = int(np.argmin(curve))
+    band, clipped = None, (False, False)
+    for low, high, low_clipped, high_clipped in _runs(freq, curve, threshold_db):
+        if low <= freq[k] <= high:
+            band, clipped = (low, high), (low_clipped, high_clipped)
+            break
+    return CurveSummary(notch_hz=float(freq[k]), depth_db=float(curve[k]), stopband_hz=band,
+                        threshold_db=float(threshold_db), notch_at_grid_edge=k in (0, len(freq) - 1),
+                        stopband_clipped=clipped)
+
+
+def guaranteed_stopband(freq_hz, curves_db: Sequence, threshold_db: float = DEFAULT_THRESHOLD_DB
+                        ) -> list[tuple[float, float]]:
+    """Bands (low, high) in Hz where every curve is at or below ``threshold_db``: the frequencies rejected at
+    every tolerance corner.  Each curve's runs below the threshold (edges interpolated linearly in dB) are
+    intersected; empty when no frequency is rejected by all of them."""
+    if len(curves_db) == 0:
+        raise EbgError("curves: none given; the guaranteed stopband needs at least one curve")
+    _check_threshold(threshold_db)
+    bands: list[tuple[float, float]] | None = None
+    for i, s_db in enumerate(curves_db):
+        freq, curve = _curve(freq_hz, s_db, f"curves_db[{i}]")
+        runs = [(low, high) for low, high, _, _ in _runs(freq, curve, threshold_db)]
+        bands = runs if bands is None else _intersect(bands, runs)
+    return bands or []
+
+
+def response_json(mm, *, source: str, target_hz: float | None, threshold_db: float = DEFAULT_THRESHOLD_DB,
+                  extra: dict | None = None) -> dict:
+    """The result file's content for one 4-port's mixed-mode terms (``sparams.MixedMode``), in a fixed key order.
+
+    Keys: ``source``, ``port_order``, ``target_hz``, ``threshold_db``, ``scc21`` (the ``CurveSummary``),
+    ``sdd21_at_notch_db``, ``scc21_at_target_db``, ``sdd21_at_target_db`` (linear in dB between grid points;
+    None without a target or outside the sweep), ``target_in_stopband``, ``sdd21_worst_db`` and
+    ``sdc21_worst_db`` (the highest mode conversion over the sweep), ``caution``, then ``extra``'s keys in their
+    order, then the curves ``freq_hz``, ``scc21_db``, ``sdd21_db``.  Hz rounded to 1 Hz, dB to 0.0001 dB.
+    """
+    if not isinstance(source, str) or not source.strip():
+        raise EbgError(f"source = {source!r}: must name where the S-parameters came from")
+    freq, scc21 = _curve(mm.freq_hz, db20(mm.scc21), "scc21")
+    sdd21, sdc21 = db20(mm.sdd21), db20(mm.sdc21)
+    _curve(freq, sdd21, "sdd21")
+    _curve(freq, sdc21, "sdc21")
+    summary = summarize(freq, scc21, threshold_db)
+    notch = int(np.argmin(scc21))
+    inside = target_hz is not None and freq[0] <= target_hz <= freq[-1]
+    band = summary.stopband_hz
+    out = {"source": source, "port_order": PORT_ORDER_NOTE,
+           "target_hz": None if target_hz is None else _hz(target_hz), "threshold_db": _db(threshold_db),
+           "scc21": summary.as_json(), "sdd21_at_notch_db": _db(sdd21[notch]),
+           "scc21_at_target_db": _db(np.interp(target_hz, freq, scc21)) if inside else None,
+           "sdd21_at_target_db": _db(np.interp(target_hz, freq, sdd21)) if inside else None,
+           "target_in_stopband": bool(inside and band is not None and band[0] <= target_hz <= band[1]),
+           "sdd21_worst_db": _db(sdd21.min()), "sdc21_worst_db": _db(sdc21.max()), "caution": RESPONSE_CAUTION}
+    for key, value in (extra or {}).items():
+        if key in out or key in ("freq_hz", "scc21_db", "sdd21_db"):
+            raise EbgError(f"extra key {key!r}: clashes with a result key; rename it")
+        out[key] = value
+    out["freq_hz"] = [_hz(f) for f in freq]
+    out["scc21_db"] = [_db(v) for v in scc21]
+    out["sdd21_db"] = [_db(v) for v in sdd21]
+    return out
+
+
+def response_json_text(data: dict) -> str:
+    """The result file's bytes: the dict's own key order, two-space indent, a final newline."""
+    import json
+
+    return json.dumps(data, indent=2, allow_nan=False) + "\n"
+
+
+def format_response(data: dict) -> str:
+    """Terminal summary of a result file's content."""
+    cc = data["scc21"]
+    lines = [f"source: {data['source']}"]
+    note = " (at the edge of the sweep: the true notch may lie outside it)" if cc.get("notch_at_grid_edge") else ""
+    lines.append(f"Scc21 notch {cc['notch_hz'] / 1e9:.4g} GHz, depth {cc['depth_db']:.1f} dB{note}")
+    if cc["stopband_hz"] is None:
+        lines.append(f"Scc21 stopband: none (never at or below {cc['threshold_db']:g} dB)")
+    else:
+        low, high = cc["stopband_hz"]
+        lines.append(f"Scc21 stopband ({cc['threshold_db']:g} dB): {low / 1e9:.4g} - {high / 1e9:.4g} GHz")
+    if data.get("target_hz") is not None and data.get("scc21_at_target_db") is not None:
+        lines.append(f"at target {data['target_hz'] / 1e9:.4g} GHz: Scc21 {data['scc21_at_target_db']:.1f} dB, "
+                     f"Sdd21 {data['sdd21_at_target_db']:.2f} dB")
+    lines.append(f"Sdd21 at the notch {data['sdd21_at_notch_db']:.2f} dB, worst {data['sdd21_worst_db']:.2f} dB; "
+                 f"highest Sdc21 {data['sdc21_worst_db']:.1f} dB")
+    lines.append(f"caution: {data['caution']}")
+    return "\n".join(lines)
+
+
+def _curve(freq_hz, s_db, name: str) -> tuple[np.ndarray, np.ndarray]:
+    """The grid and curve as float arrays, or a one-line error naming what is wrong."""
+    freq = np.asarray(freq_hz, dtype=float)
+    curve = np.asarray(s_db, dtype=float)
+    if freq.ndim != 1 or curve.ndim != 1 or len(freq) != len(curve) or len(freq) < 2:
+        raise EbgError(f"{name}: {curve.shape} values on a grid of {freq.shape}: need one value per frequency, "
+                       "at least two")
+    if not np.all(np.isfinite(freq)) or not np.all(np.diff(freq) > 0):
+        raise EbgError("freq_hz: must be finite and strictly increasing")
+    bad = ~np.isfinite(curve)
+    if bad.any():
+        first = int(np.flatnonzero(bad)[0])
+        raise EbgError(f"{name} = {curve[first]} at {freq[first] / 1e9:.6g} GHz ({int(bad.sum())} point(s)): "
+                       "every value must be a finite number of dB")
+    return freq, curve
+
+
+def _check_threshold(threshold_db: float) -> None:
+    if isinstance(threshold_db, bool) or not isinstance(threshold_db, (int, float)) or not math.isfinite(
+            threshold_db):
+        raise EbgError(f"threshold_db = {threshold_db!r}: must be a finite number of dB")
+
+
+def _runs(freq: np.ndarray, curve: np.ndarray, threshold_db: float) -> list[tuple[float, float, bool, bool]]:
+    """Every run of grid points at or below the threshold as (low, high, low_clipped, high_clipped): each edge
+    interpolated linearly in dB towards the neighbouring point above, or the sweep's end (clipped)."""
+    below = curve <= threshold_db
+    if not below.any():
+        return []
+    change = np.flatnonzero(np.diff(below.astype(np.int8)))
+    starts = [0] if below[0] else []
+    starts += [int(i) + 1 for i in change if below[i + 1]]
+    stops = [int(i) for i in change if below[i]]
+    stops += [len(curve) - 1] if below[-1] else []
+    runs = []
+    for a, b in zip(starts, stops):
+        low = freq[0] if a == 0 else _crossing(freq, curve, a - 1, a, threshold_db)
+        high = freq[-1] if b == len(curve) - 1 else _crossing(freq, curve, b, b + 1, threshold_db)
+        runs.append((float(low), float(high), a == 0, b == len(curve) - 1))
+    return runs
+
+
+def _crossing(freq: np.ndarray, curve: np.ndarray, i: int, j: int, threshold_db: float) -> float:
+    """Frequency between grid points i and j where the straight line through their dB values meets the threshold."""
+    t = (threshold_db - curve[i]) / (curve[j] - curve[i])
+    return float(freq[i] + t * (freq[j] - freq[i]))
+
+
+def _intersect(a: list[tuple[float, float]], b: list[tuple[float, float]]) -> list[tuple[float, float]]:
+    """Intersection of two sorted lists of disjoint closed intervals."""
+    out, i, j = [], 0, 0
+    while i < len(a) and j < len(b):
+        low, high = max(a[i][0], b[j][0]), min(a[i][1], b[j][1])
+        if low <= high:
+            out.append((low, high))
+        if a[i][1] < b[j][1]:
+            i += 1
+        else:
+            j += 1
+    return out
+
+
+def _hz(value: float) -> float:
+    return float(round(float(value), HZ_DECIMALS))
+
+
+def _db(value: float) -> float:
+    return float(round(float(value), DB_DECIMALS))
