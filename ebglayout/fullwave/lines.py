@@ -4,7 +4,7 @@ Microstrip: E. Hammerstad and O. Jensen, "Accurate models for microstrip compute
 International Microwave Symposium Digest, 1980, eqs. for Z01(u), a(u), b(er) and eps_eff (zero strip thickness,
 quasi-static; stated accuracy better than 0.2 % for 0.01 <= u <= 100, er < 128).
 Stripline: S. B. Cohn, "Characteristic impedance of the shielded-strip transmission line", IRE Trans. MTT, 1954:
-Z0 = eta0 / (4 sqrt(er)) K(k') / K(k), k = sech(pi w / 2b), for a zero-thickness strip centred between planes b
+Z0 = eta0 / (4 sqrt(er)) K(k) / K(k'), k = sech(pi w / 2b), for a zero-thickness strip centred between planes b
 apart (exact conformal map).
 """
 from __future__ import annotations
@@ -35,4 +35,4 @@ def stripline_z0(w: float, b: float, er: float) -> float:
     from scipy.special import ellipk
 
     k = 1 / math.cosh(math.pi * w / (2 * b))
-    return ETA0 / (4 * math.sqrt(er)) * float(ellipk(1 - k * k) / ellipk(k * k))
+    return ETA0 / (4 * math.sqrt(er)) * float(ellipk(k * k) / ellipk(1 - k * k))

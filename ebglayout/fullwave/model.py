@@ -28,6 +28,8 @@ from ..stackup import Stackup
 EPS0 = 8.8541878128e-12
 PORT_PAD_CELLS = 5.0
 """Plane and dielectric continue this many pair heights beyond each port, so no port sits in the absorbing wall."""
+MIN_LEAD_MM = 0.3
+"""Shortest plain line allowed between a port and the cut."""
 EDGE_TOL = 1e-6
 """Two coordinates closer than this (mm) are the same mesh line."""
 
@@ -167,11 +169,12 @@ def build_model(layout: Layout, preset: str | Preset = "default", f_max_hz: floa
     outline = local(cut.outline)
     ox0, oy0, ox1, oy1 = outline.bounds
     trace_polys = {t.polarity: local(t.polygon) for t in layout.traces}
-    strip = box(ox0 - preset.lead_mm, -1e3, ox1 + preset.lead_mm, 1e3)
+    lead = _straight_lead(trace_polys, ox0, ox1, preset.lead_mm, layout.spec.pair_width)
+    strip = box(ox0 - lead, -1e3, ox1 + lead, 1e3)
     near = [p.intersection(strip).bounds for p in trace_polys.values()]
     margin_y = max(1.0, 5 * max(p.pair.h + p.cavity.h for p in stack.planes))
-    window = box(ox0 - preset.lead_mm, min([oy0] + [b[1] for b in near]) - margin_y,
-                 ox1 + preset.lead_mm, max([oy1] + [b[3] for b in near]) + margin_y)
+    window = box(ox0 - lead, min([oy0] + [b[1] for b in near]) - margin_y,
+                 ox1 + lead, max([oy1] + [b[3] for b in near]) + margin_y)
     traces = {pol: _single_piece(poly.intersection(window), pol) for pol, poly in trace_polys.items()}
 
     z_levels, slabs, planes_z = _stack(stack)
@@ -206,6 +209,22 @@ def build_model(layout: Layout, preset: str | Preset = "default", f_max_hz: floa
     model = replace(model, symmetric_across=_mirrored(model, axis="y"), symmetric_along=_mirrored(model, axis="x"))
     mesh = build_mesh(model, slot_local, er_max, z_levels)
     return replace(model, mesh=mesh)
+
+
+def _straight_lead(traces: dict, x0: float, x1: float, lead: float, width: float) -> float:
+    """The longest lead-in up to ``lead`` at which both traces cross both window ends square (a cut across
+    exactly one trace width), so every port sits on a straight piece of line; shorter where a bend is near."""
+    for trial in np.arange(lead, MIN_LEAD_MM - 1e-9, -0.05):
+        square = True
+        for poly in traces.values():
+            for x in (x0 - trial, x1 + trial):
+                cut = poly.intersection(LineString([(x, -1e3), (x, 1e3)]))
+                if cut.is_empty or abs(cut.length - width) > 1e-3 or cut.geom_type != "LineString":
+                    square = False
+        if square:
+            return float(trial)
+    raise EbgError(f"fullwave model: the pair is not straight within {MIN_LEAD_MM} mm of the cut's ends along the "
+                   "cells' row; ports need a straight lead-in")
 
 
 def default_f_max(layout: Layout) -> float:
