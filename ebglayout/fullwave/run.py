@@ -190,6 +190,7 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
         "reference_ohm": Z_REF,
         "loss": f"dielectric conductivity fitted to tan d at {model.f_kappa_hz / 1e9:.2f} GHz; copper lossless",
         "f_max_hz": model.f_max_hz,
+        "line_length_mm": round(model.port(3).feeds[0].x - model.port(1).feeds[0].x, 6),
         "with_cut": with_cut,
     }
     if keep:

@@ -1,0 +1,68 @@
+"""The ``fullwave`` command: refusals without the engine or with bad options, and one small live run."""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from ebglayout.cli import main
+
+from conftest import SAMPLES
+
+
+def _one_cell_spec(tmp_path):
+    text = (SAMPLES / "hx2_l0_tx_straight.toml").read_text()
+    text = text.replace("count = 3", "count = 1")
+    path = tmp_path / "one_cell.toml"
+    path.write_text(text)
+    return path
+
+
+def test_missing_engine_is_one_line_and_exit_2(tmp_path, monkeypatch, capsys):
+    """Without openEMS the command says what to install, in one line, exits 2 and writes nothing."""
+    monkeypatch.setenv("PATH", str(tmp_path / "empty"))
+    monkeypatch.delenv("EBGLAYOUT_OPENEMS", raising=False)
+    out = tmp_path / "out"
+    code = main(["fullwave", str(_one_cell_spec(tmp_path)), "--out", str(out), "--preset", "fast"])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert len(err.splitlines()) == 1 and "apt-get install openems python3-openems" in err
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("args, key", [(["--threads", "0"], "--threads"), (["--time-limit", "-1"], "--time-limit")])
+def test_bad_options(tmp_path, capsys, args, key):
+    code = main(["fullwave", str(_one_cell_spec(tmp_path)), "--out", str(tmp_path / "o"), *args])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and key in err and len(err.splitlines()) == 1
+
+
+def test_existing_output_refused_before_the_run(tmp_path, capsys, openems):
+    """An existing output is refused before any engine run (no --force), and nothing else is written."""
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "hx2_l0_tx_straight.s4p").write_text("mine")
+    code = main(["fullwave", str(_one_cell_spec(tmp_path)), "--out", str(out), "--preset", "fast"])
+    assert code == 2 and "--force" in capsys.readouterr().err
+    assert sorted(p.name for p in out.iterdir()) == ["hx2_l0_tx_straight.s4p"]
+    assert (out / "hx2_l0_tx_straight.s4p").read_text() == "mine"
+
+
+def test_live_run_writes_touchstone_json_and_plot(tmp_path, capsys, openems):
+    """A one-cell fast run writes a Touchstone file scikit-rf reads back as a 4-port at 50 ohm, the result JSON
+    with the full-wave metadata, and the plot; the run folder is gone without --keep-run."""
+    import skrf
+
+    out = tmp_path / "out"
+    code = main(["fullwave", str(_one_cell_spec(tmp_path)), "--out", str(out), "--preset", "fast"])
+    assert code == 0, capsys.readouterr().err
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["hx2_l0_tx_straight.fullwave.json", "hx2_l0_tx_straight.fullwave.png",
+                     "hx2_l0_tx_straight.fullwave.svg", "hx2_l0_tx_straight.s4p"]
+    net = skrf.Network(str(out / "hx2_l0_tx_straight.s4p"))
+    assert net.nports == 4 and np.allclose(net.z0, 50.0)
+    data = json.loads((out / "hx2_l0_tx_straight.fullwave.json").read_text())
+    assert data["source"].startswith("full-wave: openEMS")
+    assert data["fullwave"]["preset"] == "fast" and data["fullwave"]["symmetry"].startswith("half domain")
+    assert "compliance" in data["caution"]
