@@ -174,7 +174,10 @@ def run_engine(model: Model, excite: dict[int, float], folder: Path, threads: in
     state = Progress(total=steps)
     started = time.monotonic()
     log = open(folder / "engine.log", "w", encoding="utf-8")
-    proc = subprocess.Popen([exe, "model.xml", f"--numThreads={threads}"], cwd=folder, stdout=subprocess.PIPE,
+    # line-buffered through stdbuf where it exists: the engine's status lines then arrive as written
+    line_buffered = [shutil.which("stdbuf"), "-oL"] if shutil.which("stdbuf") else []
+    proc = subprocess.Popen([*line_buffered, exe, "model.xml", f"--numThreads={threads}"], cwd=folder,
+                            stdout=subprocess.PIPE,
                             stderr=subprocess.STDOUT, text=True, bufsize=1, start_new_session=True)
     try:
         for line in proc.stdout:
