@@ -120,3 +120,45 @@ def test_slot_mesh_convergence(one_cell_lossless):
              for r in (coarse, fine)]
     assert notch[1] == pytest.approx(notch[0], rel=0.01)
     assert fine.meta["cells"][0] > coarse.meta["cells"][0]
+
+
+def test_drawn_check_catches_a_broken_trace(openems, tmp_path, sample_layouts):
+    """The engine's own PEC dump shows a trace cut in two (as a staircased jog would be) and the run is refused
+    before it starts; the intact model passes the same check."""
+    from dataclasses import replace
+
+    from shapely.geometry import box
+
+    from ebglayout.fullwave.model import Sheet, build_model, hole_free
+    from ebglayout.fullwave.openems import check_drawn
+    from ebglayout.fullwave.pec_check import DrawnCheckFailed
+
+    model = build_model(sample_layouts["hx2_l0_tx_straight"], "fast")
+    assert check_drawn(model, tmp_path / "intact")["pec_edges"] > 0
+    traces = next(s for s in model.sheets if s.name == "traces")
+    gap = box(0.0, -5, 0.6, 5)
+    broken = Sheet("traces", traces.z, tuple(q for p in traces.polygons for q in hole_free(p.difference(gap))))
+    sheets = tuple(broken if s.name == "traces" else s for s in model.sheets)
+    with pytest.raises(DrawnCheckFailed, match="separate pieces"):
+        check_drawn(replace(model, sheets=sheets), tmp_path / "broken")
+
+
+def test_drawn_check_catches_a_slot_closed_by_the_mesh(openems, tmp_path, sample_layouts):
+    """Without mesh lines on a slot's edges the engine snaps the copper across the slot; the dump check sees
+    copper inside the drawn slot and refuses."""
+    from dataclasses import replace
+
+    from ebglayout.fullwave.model import build_model
+    from ebglayout.fullwave.openems import check_drawn
+    from ebglayout.fullwave.pec_check import DrawnCheckFailed
+
+    model = build_model(sample_layouts["hx2_l0_tx_straight"], "fast")
+    mx, my, mz = model.mesh
+    xs = sorted(v for axis, v in model.slot_edges if axis == "x")[:2]
+    keep = np.ones(len(mx), bool)
+    for a in xs:
+        keep &= np.abs(mx - a) > 1e-6
+    keep &= ~((mx > xs[0]) & (mx < xs[1]))
+    coarse = replace(model, mesh=(mx[keep], my, mz))
+    with pytest.raises(DrawnCheckFailed):
+        check_drawn(coarse, tmp_path / "closed")

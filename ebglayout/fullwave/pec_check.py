@@ -80,8 +80,8 @@ def _decode(blob: str, offset: int, dtype, htype, compressed: bool) -> np.ndarra
 
 def check_pec_dump(model: Model, path: Path) -> dict:
     """Refuse unless (1) each trace's conductor at its height is one connected piece joining its ports and not
-    touching the other trace, and (2) on every cut plane no conductor edge lies inside a slot and no edge inside
-    copper is missing.  Returns counts for the record."""
+    touching the other trace, and (2) on every cut plane no conductor edge lies inside a slot, every slot keeps at
+    least one mesh cell, and every mesh edge inside the drawn copper is conductor.  Returns counts."""
     points, segs = read_pec_edges(path)
     tol = 1e-4
     z = points[:, 2]
@@ -120,24 +120,62 @@ def check_pec_dump(model: Model, path: Path) -> dict:
             bad = mids[np.flatnonzero(inside_gap)[0]]
             raise DrawnCheckFailed(f"fullwave check: the engine put copper inside a slot of {sheet.name} near "
                                    f"({bad[0]:.4f}, {bad[1]:.4f}) mm (model frame); nothing run")
-        expected = _interior_edges(model, copper.buffer(-tol), sheet.z)
-        if expected > at_plane.sum():
-            raise DrawnCheckFailed(f"fullwave check: {sheet.name} has {int(at_plane.sum())} conductor edges in the "
-                                   f"engine's map, the drawing asks for at least {expected}; nothing run")
+        for part in getattr(gap, "geoms", [gap]):
+            if len(_edge_midpoints(model, part.buffer(-tol))) == 0:
+                at = part.representative_point()
+                raise DrawnCheckFailed(f"fullwave check: the slot of {sheet.name} near ({at.x:.4f}, {at.y:.4f}) mm "
+                                       "(model frame) has no mesh cell in it, so the engine closed it; nothing run")
+        _check_edges_on_lines(sheet.name, points, segs[at_plane], gap, tol)
+        expected = _edge_midpoints(model, copper.buffer(-tol))
+        if len(expected):
+            from scipy.spatial import cKDTree
+
+            distance, _ = cKDTree(mids).query(expected) if len(mids) else (np.full(len(expected), np.inf), None)
+            missing = np.flatnonzero(distance > 1e-3)
+            if len(missing):
+                bad = expected[missing[0]]
+                raise DrawnCheckFailed(f"fullwave check: {len(missing)} mesh edges inside the copper of {sheet.name} "
+                                       f"are not conductor in the engine's map, first near ({bad[0]:.4f}, "
+                                       f"{bad[1]:.4f}) mm (model frame); nothing run")
         counts[sheet.name] = int(at_plane.sum())
     return counts
 
 
-def _interior_edges(model: Model, copper, z: float) -> int:
-    """How many mesh edges in the plane z have their midpoint strictly inside the copper."""
+def _check_edges_on_lines(name: str, points: np.ndarray, segs: np.ndarray, gap, tol: float) -> None:
+    """Every axis-aligned slot edge is lined, over at least 90 % of its length, by conductor edges of the dump
+    lying exactly on it: the copper ends where the polygon says, not on a neighbouring mesh line."""
+    a, b = points[segs[:, 0], :2], points[segs[:, 1], :2]
+    for part in getattr(gap, "geoms", [gap]):
+        for ring in (part.exterior, *part.interiors):
+            xy = np.asarray(ring.coords)
+            for (ax, ay), (bx, by) in zip(xy[:-1], xy[1:]):
+                if abs(ax - bx) < tol:
+                    axis, value, lo, hi = 0, ax, min(ay, by), max(ay, by)
+                elif abs(ay - by) < tol:
+                    axis, value, lo, hi = 1, ay, min(ax, bx), max(ax, bx)
+                else:
+                    continue
+                other = 1 - axis
+                on = (np.abs(a[:, axis] - value) < tol) & (np.abs(b[:, axis] - value) < tol)
+                s0 = np.clip(np.minimum(a[on, other], b[on, other]), lo, hi)
+                s1 = np.clip(np.maximum(a[on, other], b[on, other]), lo, hi)
+                if (s1 - s0).sum() < 0.9 * (hi - lo):
+                    where = ("x", "y")[axis]
+                    raise DrawnCheckFailed(f"fullwave check: the slot edge {where} = {value:.4f} mm of {name} (model "
+                                           "frame) did not land on a mesh line in the engine's map; nothing run")
+
+
+def _edge_midpoints(model: Model, region) -> np.ndarray:
+    """Midpoints (k, 2) of the mesh edges in an x-y plane whose midpoint lies strictly inside ``region``."""
     mx, my, _ = model.mesh
-    total = 0
     xm = 0.5 * (mx[1:] + mx[:-1])
     ym = 0.5 * (my[1:] + my[:-1])
+    found = []
     for xs, ys in ((xm, my), (mx, ym)):
         gx, gy = np.meshgrid(xs, ys, indexing="ij")
-        total += int(shapely.contains_xy(copper, gx.ravel(), gy.ravel()).sum())
-    return total
+        pts = np.column_stack([gx.ravel(), gy.ravel()])
+        found.append(pts[shapely.contains_xy(region, pts[:, 0], pts[:, 1])])
+    return np.concatenate(found)
 
 
 def _components(n: int, edges: np.ndarray) -> np.ndarray:
