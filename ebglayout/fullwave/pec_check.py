@@ -125,7 +125,7 @@ def check_pec_dump(model: Model, path: Path) -> dict:
                 at = part.representative_point()
                 raise DrawnCheckFailed(f"fullwave check: the slot of {sheet.name} near ({at.x:.4f}, {at.y:.4f}) mm "
                                        "(model frame) has no mesh cell in it, so the engine closed it; nothing run")
-        _check_edges_on_lines(sheet.name, points, segs[at_plane], gap, tol)
+        _check_edges_on_lines(sheet.name, points, segs[at_plane], gap, tol, model.domain[:4])
         expected = _edge_midpoints(model, copper.buffer(-tol))
         if len(expected):
             from scipy.spatial import cKDTree
@@ -141,7 +141,7 @@ def check_pec_dump(model: Model, path: Path) -> dict:
     return counts
 
 
-def _check_edges_on_lines(name: str, points: np.ndarray, segs: np.ndarray, gap, tol: float) -> None:
+def _check_edges_on_lines(name: str, points: np.ndarray, segs: np.ndarray, gap, tol: float, walls) -> None:
     """Every axis-aligned slot edge is lined, over at least 90 % of its length, by conductor edges of the dump
     lying exactly on it: the copper ends where the polygon says, not on a neighbouring mesh line."""
     a, b = points[segs[:, 0], :2], points[segs[:, 1], :2]
@@ -155,6 +155,8 @@ def _check_edges_on_lines(name: str, points: np.ndarray, segs: np.ndarray, gap, 
                     axis, value, lo, hi = 1, ay, min(ax, bx), max(ax, bx)
                 else:
                     continue
+                if min(abs(value - w) for w in walls[2 * axis:2 * axis + 2]) < tol:
+                    continue  # the domain's own wall (a half domain's symmetry plane), not a drawn edge
                 other = 1 - axis
                 on = (np.abs(a[:, axis] - value) < tol) & (np.abs(b[:, axis] - value) < tol)
                 s0 = np.clip(np.minimum(a[on, other], b[on, other]), lo, hi)
