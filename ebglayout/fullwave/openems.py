@@ -25,6 +25,8 @@ from ..errors import EbgError
 from .model import Model
 
 C0 = 299792458.0
+GROWTH_DB = 10.0
+"""Field energy rising this far above its lowest value (itself this far below the peak) stops the run."""
 INSTALL_HINT = "apt-get install openems python3-openems (Debian/Ubuntu)"
 
 
@@ -158,6 +160,9 @@ class RunSignals:
     steps: int
     end_energy_db: float
     wall_s: float
+    cut_at_growth: bool = False
+    """The field energy grew again late in the run (a known late-time instability of absorbing walls around
+    lossless resonators); the record was stopped and cut at its lowest energy."""
 
 
 def run_engine(model: Model, excite: dict[int, float], folder: Path, threads: int, deadline: float | None,
@@ -172,6 +177,8 @@ def run_engine(model: Model, excite: dict[int, float], folder: Path, threads: in
     steps = int(math.ceil(model.preset.max_time_ns * 1e-9 / dt))
     (folder / "model.xml").write_text(model_xml(model, excite, steps, model.preset.end_db), encoding="utf-8")
     state = Progress(total=steps)
+    lowest = (0.0, 0)  # (energy dB, step) after the pulse has left
+    growth = False
     started = time.monotonic()
     log = open(folder / "engine.log", "w", encoding="utf-8")
     # line-buffered through stdbuf where it exists: the engine's status lines then arrive as written
@@ -187,10 +194,15 @@ def run_engine(model: Model, excite: dict[int, float], folder: Path, threads: in
                 state.step, state.energy_db = int(hit.group(1)), -float(hit.group(3))
                 if progress:
                     progress(state)
+                if state.energy_db < lowest[0]:
+                    lowest = (state.energy_db, state.step)
+                elif lowest[0] < -GROWTH_DB and state.energy_db > lowest[0] + GROWTH_DB:
+                    growth = True  # late-time growth: the record after the lowest energy is not physical
+                    break
             if deadline is not None and time.monotonic() > deadline:
                 raise TimeLimit("fullwave --time-limit: reached before openEMS finished; give more minutes or a "
                                 "faster --preset")
-        code = proc.wait()
+        code = 0 if growth else proc.wait()
     finally:
         if proc.poll() is None:
             _stop(proc)
@@ -198,6 +210,11 @@ def run_engine(model: Model, excite: dict[int, float], folder: Path, threads: in
     if code != 0:
         raise EngineFailed(f"openEMS: exited with code {code}; see {folder / 'engine.log'}")
     text = (folder / "engine.log").read_text(encoding="utf-8", errors="replace")
+    if growth:
+        found = re.search(r"timestep is:\s*([0-9.eE+\-]+)", text)
+        step_s = float(found.group(1)) if found else dt
+        state.step, state.energy_db = lowest[1], lowest[0]
+        return _read_signals(model, folder, state, time.monotonic() - started, cut_s=lowest[1] * step_s)
     hits = _PROGRESS.findall(text)
     if hits:
         state.step, state.energy_db = int(hits[-1][0]), -float(hits[-1][2])
@@ -217,24 +234,36 @@ def _stop(proc: subprocess.Popen) -> None:
         proc.wait()
 
 
-def _read_signals(model: Model, folder: Path, state: Progress, wall: float) -> RunSignals:
+def _read_signals(model: Model, folder: Path, state: Progress, wall: float, cut_s: float | None = None
+                  ) -> RunSignals:
     times, volts, amps = {}, {}, {}
     for port in model.ports:
         us, its = [], []
         for k in range(len(port.feeds)):
             u_name, i_name = probe_names(port.number, k)
             try:
-                u = np.loadtxt(folder / u_name, comments="%")
-                i = np.loadtxt(folder / i_name, comments="%")
+                u, i = _probe(folder / u_name, cut_s), _probe(folder / i_name, cut_s)
             except OSError as err:
                 raise EngineFailed(f"openEMS: port {port.number} signals missing ({err}); see "
                                    f"{folder / 'engine.log'}") from err
-            us.append(u)
-            its.append(i)
+            n = min(len(x) for x in (*us, *its, u, i))
+            us, its = [x[:n] for x in (*us, u)], [x[:n] for x in (*its, i)]
         times[port.number] = (us[0][:, 0], its[0][:, 0])
         volts[port.number] = np.mean([u[:, 1] for u in us], axis=0)
         amps[port.number] = np.sum([i[:, 1] for i in its], axis=0)
-    return RunSignals(times, volts, amps, state.step, state.energy_db, wall)
+    return RunSignals(times, volts, amps, state.step, state.energy_db, wall, cut_s is not None)
+
+
+def _probe(path: Path, cut_s: float | None) -> np.ndarray:
+    """A probe file's (time, value) rows, without a last line the stopped engine left half written, up to cut_s."""
+    rows = [line.split() for line in path.read_text(encoding="ascii", errors="replace").splitlines()
+            if line and not line.startswith("%")]
+    data = np.array([[float(a), float(b)] for a, b in (r[:2] for r in rows if len(r) >= 2)]).reshape(-1, 2)
+    if cut_s is not None:
+        data = data[data[:, 0] <= cut_s]
+    if len(data) < 4:
+        raise EngineFailed(f"openEMS: {path.name} holds no usable record")
+    return data
 
 
 def spectrum(t: np.ndarray, x: np.ndarray, freq_hz: np.ndarray) -> np.ndarray:

@@ -185,6 +185,7 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
         "cells": [d.model.cells for d in drives],
         "time_steps": [sig.steps for _, sig in runs],
         "end_energy_db": [round(sig.end_energy_db, 1) for _, sig in runs],
+        "record_cut_at_energy_growth": [sig.cut_at_growth for _, sig in runs],
         "wall_s": round(time.monotonic() - started, 1),
         "port_resistor_ohm": round(z_port, 2),
         "reference_ohm": Z_REF,
