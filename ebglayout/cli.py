@@ -8,6 +8,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import EbgError
+from .units import LENGTH_UNITS_MM
 
 EXAMPLES = {
     "demo": "ebglayout demo --out ./ebglayout-demo",
@@ -45,7 +46,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, default=Path("ebglayout-demo"), help="output folder (default ./ebglayout-demo)")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
-    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png, .kicad_mod, .kicad_dru and report.json")
+    p = command("build", "build one spec: <name>.dxf, .gds, .svg, .png, .kicad_mod, .kicad_dru and .report.json")
     p.add_argument("spec", type=Path)
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
@@ -80,15 +81,20 @@ def _parser() -> argparse.ArgumentParser:
     p = command("size", "first-pass patch size for a target notch")
     p.add_argument("--target", required=True, help='frequency ("8GHz") or NRZ data rate ("16Gbps")')
     p.add_argument("--er", type=float, required=True, help="dielectric constant between cut plane and next plane")
-    p.add_argument("--h", default="0.1", help="that dielectric's thickness (default 0.1 mm)")
+    p.add_argument("--h", default="0.1mm", help="that dielectric's thickness (default 0.1 mm)")
     p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
-    p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE] in mm")
-    p.add_argument("--slot", default="0.15", help="slot width (default 0.15 mm)")
+    p.add_argument("--bridge", help="bridged: WIDTH,LENGTH[,PER_SIDE]")
+    p.add_argument("--slot", default="0.15mm", help="slot width (default 0.15 mm)")
+    p.add_argument("--units", default="mm", choices=sorted(LENGTH_UNITS_MM),
+                   help="unit of bare lengths given here and of every length printed (default mm)")
     p.add_argument("--json", action="store_true", help="print JSON")
 
     p = command("refine", "correct a spec's dimensions from the notch a simulation observed")
     p.add_argument("spec", type=Path)
-    p.add_argument("--observed", required=True, help='notch frequency the simulation found, e.g. "7.4GHz"')
+    given = p.add_mutually_exclusive_group(required=True)
+    given.add_argument("--observed", help='notch frequency the simulation found, e.g. "7.4GHz"')
+    given.add_argument("--result", type=Path, metavar="FILE.json",
+                       help="result file of the full-wave command or the fast model (its scc21.notch_hz)")
     p.add_argument("--json", action="store_true", help="print JSON")
 
     p = command("pairs", "list the differential pairs on a KiCad board and the straight runs a filter fits on")
@@ -102,7 +108,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--spec", type=Path, help="the filter spec (cut, rules; pair geometry comes from the board)")
     p.add_argument("--plan", type=Path, help="TOML plan with [[filter]] tables (spec + pair or match) for many pairs")
     p.add_argument("--out", type=Path, required=True, help="the new .kicad_pcb (never the input)")
-    p.add_argument("--artifacts", type=Path, help="also write each filter's GDSII, DXF, SVG, PNG and report.json here")
+    p.add_argument("--artifacts", type=Path,
+                   help="also write each filter's GDSII, DXF, SVG, PNG and <name>.report.json here")
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("kicad-package", "build the KiCad Plugin and Content Manager zip of the action plugin")
@@ -136,7 +143,8 @@ def main(argv: list[str] | None = None) -> int:
     except OSError as err:
         if getattr(args, "debug", False):
             raise
-        print(f"ebglayout: error: {err.filename or ''}: {err.strerror or err}", file=sys.stderr)
+        print(f"ebglayout: error: {err.filename}: {err.strerror or err}" if err.filename else
+              f"ebglayout: error: {err.strerror or err}", file=sys.stderr)
         return 2
     except Exception as err:  # a bug, not bad input: one line, the traceback only with --debug
         if getattr(args, "debug", False):
@@ -147,59 +155,77 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _demo(args) -> int:
-    from .pipeline import build_to_folder, output_names
-    from .outputs import StagedOutputs
     from .bundled import sample_specs
+    from .outputs import StagedOutputs
+    from .pipeline import make_filter, output_names, write_filter
     from .spec import load_spec
+    from .units import format_length
 
-    specs = [load_spec(p) for p in sample_specs()]
-    staged = StagedOutputs(args.out, force=args.force)
-    staged.require_free([n for s in specs for n in output_names(s.name) if n != "report.json"])
+    paths = sample_specs()
+    specs = [load_spec(p) for p in paths]
     worst = 0
-    for spec in specs:
-        result = build_to_folder(spec, args.out / spec.name, force=args.force)
+    with StagedOutputs(args.out, force=args.force, inputs=paths) as staged:
+        staged.require_free([n for s in specs for n in output_names(s.name, s.name)])
+        results = [make_filter(spec) for spec in specs]
+        for result in results:
+            write_filter(result, staged, folder=result.name)
+    for result in results:
         c = result.checks
         est = result.estimate.to_json() if result.estimate is not None else None
         band = f"{est['band']['low_hz'] / 1e9:.2f}-{est['band']['high_hz'] / 1e9:.2f} GHz" if est else "-"
-        print(f"{spec.name:<22} {spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
-              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {c.min_slot_width:.4g} mm  notch band {band}  "
-              f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / spec.name}")
+        print(f"{result.name:<22} {result.layout.spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
+              f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {format_length(c.min_slot_width, c.units)}  "
+              f"notch band {band}  "
+              f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / result.name}")
         worst = max(worst, 1 if c.errors else 0)
     print("Estimates are for placement and review; confirm with a field solve and measurement.")
     return worst
 
 
 def _build(args) -> int:
-    from .pipeline import build_to_folder
+    from .pipeline import build_to_folder, output_names
     from .spec import load_spec
 
-    result = build_to_folder(load_spec(args.spec), args.out, force=args.force, jobs=_jobs(args.jobs))
+    spec = load_spec(args.spec)
+    result = build_to_folder(spec, args.out, force=args.force, jobs=_jobs(args.jobs), inputs=(args.spec,))
     print(result.checks.format_table())
-    print(f"wrote {', '.join(sorted(p.name for p in args.out.iterdir() if p.name.startswith(result.name)))} "
-          f"and report.json to {args.out}")
+    print(f"wrote {', '.join(output_names(spec.name))} to {args.out}")
     return 1 if result.checks.errors else 0
 
 
 def _check(args) -> int:
+    from contextlib import nullcontext
+
+    from .outputs import StagedOutputs
+
     if (args.spec is None) == (args.board is None):
         raise EbgError("check: give either a SPEC file or --board BOARD")
     if args.board is not None:
-        from .kicad.workflow import check_board
+        from .kicad.workflow import board_files
 
-        reports = check_board(args.board, jobs=_jobs(args.jobs))
-        if not reports:
-            print(f"{args.board}: no ebglayout filters on this board")
+        sources = board_files(args.board)
     else:
-        from .pipeline import make_filter
-        from .spec import load_spec
+        sources = (args.spec,)
+    junit = StagedOutputs(args.junit.parent, force=True, inputs=sources, option="--junit") if args.junit else None
+    with junit if junit else nullcontext():
+        if junit:
+            junit.require_free([args.junit.name])
+        if args.board is not None:
+            from .kicad.workflow import check_board
 
-        reports = [make_filter(load_spec(args.spec)).checks]
-    if args.junit:
-        from .checks.junit import junit_xml
-        from .outputs import StagedOutputs
+            reports = check_board(args.board, jobs=_jobs(args.jobs))
+            if not reports:  # a note, not a result: --json keeps stdout to the JSON alone
+                print(f"{args.board}: no ebglayout filters on this board",
+                      file=sys.stderr if args.json else sys.stdout)
+        else:
+            from .pipeline import make_filter
+            from .spec import load_spec
 
-        with StagedOutputs(args.junit.parent if str(args.junit.parent) else Path("."), force=True) as staged:
-            staged.write_text(args.junit.name, junit_xml(reports, strict=args.strict))
+            reports = [make_filter(load_spec(args.spec)).checks]
+        if junit:
+            from .checks.junit import junit_xml
+
+            junit.write_text(args.junit.name, junit_xml(reports, strict=args.strict))
     if args.json:
         data = [r.to_json() for r in reports]
         print(json.dumps(data[0] if args.spec is not None else data, indent=2))
@@ -300,7 +326,8 @@ def _place(args) -> int:
         requests = [Request(load_spec_dict(args.spec), str(args.spec), pair=tuple(args.pair))]
     else:
         raise EbgError("place: needs --pair NET_P NET_N with --spec SPEC, or --plan PLAN")
-    placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"))
+    placement = place(args.board, requests, args.out, args.artifacts, args.force, progress=_progress("placing"),
+                      inputs=[args.plan] if args.plan is not None else [])
     for p in placement.filters:
         print(p.result.checks.format_table())
     for risk in placement.risks:
@@ -334,8 +361,9 @@ def _estimate(args) -> int:
     from .layout import build_layout
     from .spec import load_spec
 
-    estimate = estimate_layout(build_layout(load_spec(args.spec)))
-    print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate))
+    spec = load_spec(args.spec)
+    estimate = estimate_layout(build_layout(spec))
+    print(json.dumps(estimate.to_json(), indent=2) if args.json else format_table(estimate, spec.units))
     return 0
 
 
@@ -343,24 +371,32 @@ def _size(args) -> int:
     from .estimate.sizing import format_sizing, size_for_target
     from .units import parse_frequency, parse_length
 
-    bridge = None
-    if args.bridge:
-        parts = args.bridge.split(",")
-        if len(parts) not in (2, 3):
-            raise EbgError(f"--bridge = {args.bridge}: must be WIDTH,LENGTH[,PER_SIDE] in mm")
-        bridge = (parse_length(parts[0], "--bridge width"), parse_length(parts[1], "--bridge length"),
-                  int(parts[2]) if len(parts) == 3 and parts[2].strip().isdigit() else 1)
+    bridge = _bridge(args.bridge, args.units) if args.bridge else None
     if not 1.0 <= args.er <= 30.0:
         raise EbgError(f"--er = {args.er:g}: must be between 1 and 30")
     if args.style == "bridged" and bridge is None:
         raise EbgError("--bridge = (missing): the bridged style needs --bridge WIDTH,LENGTH[,PER_SIDE]")
-    sizes = {k: parse_length(v, f"--{k}") for k, v in (("h", args.h), ("slot", args.slot))}
+    sizes = {k: parse_length(v, f"--{k}", args.units) for k, v in (("h", args.h), ("slot", args.slot))}
     if min(sizes.values()) <= 0:
         raise EbgError(f"--h = {args.h}, --slot = {args.slot}: both must be > 0")
     result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style,
                              h=sizes["h"], bridge=bridge, slot=sizes["slot"])
-    print(json.dumps(result, indent=2) if args.json else format_sizing(result))
+    print(json.dumps(result, indent=2) if args.json else format_sizing(result, args.units))
     return 0
+
+
+def _bridge(text: str, units: str) -> tuple[float, float, int]:
+    """--bridge WIDTH,LENGTH[,PER_SIDE]: lengths (bare in ``units``), PER_SIDE a whole number >= 1 (default 1)."""
+    from .units import parse_length
+
+    parts = text.split(",")
+    if len(parts) not in (2, 3):
+        raise EbgError(f"--bridge = {text}: must be WIDTH,LENGTH[,PER_SIDE], lengths in {units} unless they say")
+    per_side = parts[2].strip() if len(parts) == 3 else "1"
+    if not per_side.isdigit() or int(per_side) < 1:
+        raise EbgError(f"--bridge = {text}: PER_SIDE = {per_side or '(empty)'} must be a whole number >= 1")
+    return (parse_length(parts[0], "--bridge width", units), parse_length(parts[1], "--bridge length", units),
+            int(per_side))
 
 
 def _refine(args) -> int:
@@ -368,8 +404,20 @@ def _refine(args) -> int:
     from .spec import load_spec
     from .units import parse_frequency
 
-    result = refine(load_spec(args.spec), parse_frequency(args.observed, "--observed"))
-    print(json.dumps(result, indent=2) if args.json else format_refine(result))
+    spec = load_spec(args.spec)
+    if args.result is None:
+        result = refine(spec, parse_frequency(args.observed, "--observed"))
+    else:
+        from .response import read_observed_notch
+
+        seen = read_observed_notch(args.result)
+        origin = {"file": seen.path, "source": seen.source}
+        if not seen.reached_threshold:
+            depth = "depth not stated" if seen.depth_db is None else f"{seen.depth_db:g} dB"
+            origin["note"] = (f"the notch is shallow ({depth}, never at the file's threshold): "
+                              "check the run before trusting its frequency")
+        result = refine(spec, seen.notch_hz, observed_from=origin)
+    print(json.dumps(result, indent=2) if args.json else format_refine(result, spec.units))
     return 0
 
 

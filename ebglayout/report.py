@@ -1,7 +1,8 @@
 """report.json: the stable, documented summary that outside checks read.
 
-Keys (all lengths mm, frequencies Hz): ``filter``, ``spec`` (the spec as given), ``stackup``
-(per cut plane the pair's and the cavity's dielectric, and where each value came from),
+Keys (all lengths mm, frequencies Hz, whatever the spec's units; ``units`` says so): ``filter``, ``units``
+({"length": "mm", "area": "mm2", "frequency": "Hz", "spec": the spec's own unit}), ``spec`` (the spec as given),
+``stackup`` (per cut plane the pair's and the cavity's dielectric, and where each value came from),
 ``cells`` ([{index, centre, size, rotation_deg}]), ``crossings`` ({"P", "N"} on the
 first plane layer), ``crossings_by_layer``, ``min_slot_width``, ``min_copper_width``,
 ``gds_layers`` ({"<layer>/<role>": [layer, datatype]}), ``route`` (centre-line
@@ -16,7 +17,6 @@ import json
 from . import CAUTION
 
 
-
 def report_data(layout, checks, estimate=None) -> dict:
     """Assemble report.json's content from the layout, the check report and the estimate."""
     from .export.gds import gds_layers
@@ -24,6 +24,7 @@ def report_data(layout, checks, estimate=None) -> dict:
     check_json = checks.to_json()
     data = {
         "filter": layout.spec.name,
+        "units": {**check_json["units"], "frequency": "Hz"},
         "spec": layout.spec.echo,
         "stackup": layout.stackup.to_json(),
         "cells": [{"index": c.index, "centre": [round(c.centre[0], 6), round(c.centre[1], 6)],

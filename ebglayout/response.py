@@ -6,8 +6,10 @@ told), its edges interpolated linearly in dB between the grid points either side
 """
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Sequence
 
 import numpy as np
@@ -36,9 +38,9 @@ def db20(s: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class CurveSummary:
-    """What one curve says: the notch (deepest grid point), its depth and the stopband around it.
+    """What one curve says: the notch, its depth and the stopband around it (see ``summarize``).
 
-    ``depth_db`` is the curve's value at the notch (dB; -25 means 25 dB of rejection).  ``notch_at_grid_edge``
+    ``depth_db`` is the deepest sampled value (dB; -25 means 25 dB of rejection).  ``notch_at_grid_edge``
     is True when the deepest point is the first or last frequency, so the true notch may lie outside the
     sweep; ``stopband_clipped`` says per edge (low, high) whether the stopband runs into the end of the sweep, so
     that edge is the sweep's limit, not the curve's.
@@ -65,10 +67,14 @@ class CurveSummary:
 def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> CurveSummary:
     """Notch, depth and stopband of one curve (|S| in dB on an increasing grid in Hz).
 
-    The notch is the deepest grid point (its frequency is known to the grid spacing).  The stopband is the one
-    run of the curve at or below ``threshold_db`` that holds the notch, its edges interpolated linearly in dB;
-    when a curve has two separate dips, the stopband is the one around the deeper notch, and the other dip is
-    not reported (``guaranteed_stopband`` lists every band).  None when the curve never reaches the threshold.
+    The notch frequency is the vertex of the parabola through |S|^2 at the deepest grid point and its two
+    neighbours: near a resonance notch |S|^2 grows as the square of the detuning, so the vertex finds the
+    centre between grid points (kept within the neighbours; the grid point itself at the sweep's ends).
+    ``depth_db`` is the deepest sampled value, so it never claims more rejection than was computed.  The
+    stopband is the one run of the curve at or below ``threshold_db`` that holds the deepest grid point, its
+    edges interpolated linearly in dB; when a curve has two separate dips, the stopband is the one around the
+    deeper notch, and the other dip is not reported (``guaranteed_stopband`` lists every band).  None when the
+    curve never reaches the threshold.
     """
     freq, curve = _curve(freq_hz, s_db, "s_db")
     _check_threshold(threshold_db)
@@ -78,7 +84,7 @@ def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> Curv
         if low <= freq[k] <= high:
             band, clipped = (low, high), (low_clipped, high_clipped)
             break
-    return CurveSummary(notch_hz=float(freq[k]), depth_db=float(curve[k]), stopband_hz=band,
+    return CurveSummary(notch_hz=_vertex(freq, curve, k), depth_db=float(curve[k]), stopband_hz=band,
                         threshold_db=float(threshold_db), notch_at_grid_edge=k in (0, len(freq) - 1),
                         stopband_clipped=clipped)
 
@@ -99,15 +105,29 @@ def guaranteed_stopband(freq_hz, curves_db: Sequence, threshold_db: float = DEFA
     return bands or []
 
 
+def corners_json(freq_hz, scc21_db_by_corner: dict, threshold_db: float = DEFAULT_THRESHOLD_DB) -> dict:
+    """Scc21 over tolerance corners (label -> curve in dB, one grid): each corner's summary in the given order,
+    the bands every corner rejects (``guaranteed_stopband``) and the shallowest corner's depth."""
+    if not scc21_db_by_corner:
+        raise EbgError("corners: none given; need at least one labelled Scc21 curve")
+    summaries = {label: summarize(freq_hz, curve, threshold_db) for label, curve in scc21_db_by_corner.items()}
+    bands = guaranteed_stopband(freq_hz, list(scc21_db_by_corner.values()), threshold_db)
+    return {"threshold_db": _db(threshold_db),
+            "corners": [{"label": str(label), **s.as_json()} for label, s in summaries.items()],
+            "guaranteed_stopband_hz": [[_hz(low), _hz(high)] for low, high in bands],
+            "worst_depth_db": _db(max(s.depth_db for s in summaries.values()))}
+
+
 def response_json(mm, *, source: str, target_hz: float | None, threshold_db: float = DEFAULT_THRESHOLD_DB,
                   extra: dict | None = None) -> dict:
     """The result file's content for one 4-port's mixed-mode terms (``sparams.MixedMode``), in a fixed key order.
 
     Keys: ``source``, ``port_order``, ``target_hz``, ``threshold_db``, ``scc21`` (the ``CurveSummary``),
-    ``sdd21_at_notch_db``, ``scc21_at_target_db``, ``sdd21_at_target_db`` (linear in dB between grid points;
+    ``sdd21_at_notch_db`` (at Scc21's deepest grid point), ``scc21_at_target_db``, ``sdd21_at_target_db`` (linear in dB between grid points;
     None without a target or outside the sweep), ``target_in_stopband``, ``sdd21_worst_db`` and
     ``sdc21_worst_db`` (the highest mode conversion over the sweep), ``caution``, then ``extra``'s keys in their
     order, then the curves ``freq_hz``, ``scc21_db``, ``sdd21_db``.  Hz rounded to 1 Hz, dB to 0.0001 dB.
+    Tolerance corners go in as ``extra={"tolerance": corners_json(...)}`` (the plot shades their common band).
     """
     if not isinstance(source, str) or not source.strip():
         raise EbgError(f"source = {source!r}: must name where the S-parameters came from")
@@ -138,9 +158,52 @@ def response_json(mm, *, source: str, target_hz: float | None, threshold_db: flo
 
 def response_json_text(data: dict) -> str:
     """The result file's bytes: the dict's own key order, two-space indent, a final newline."""
-    import json
-
     return json.dumps(data, indent=2, allow_nan=False) + "\n"
+
+
+@dataclass(frozen=True)
+class ObservedNotch:
+    """The common-mode notch a result file reports, with where it came from."""
+
+    notch_hz: float
+    source: str
+    path: str
+    depth_db: float | None = None
+    reached_threshold: bool = True
+    """False when the curve never got down to the file's threshold (a shallow notch: its frequency is weak
+    evidence)."""
+
+
+def read_observed_notch(path) -> ObservedNotch:
+    """``scc21.notch_hz`` of a result file written by the full-wave command or the fast model.
+
+    One-line errors (EbgError) name the file and what is wrong: unreadable, not JSON, no ``scc21.notch_hz``,
+    not a frequency, or a notch on the edge of the sweep (the true notch may lie outside it).
+    """
+    name = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise EbgError(f"--result = {name}: cannot be read ({getattr(err, 'strerror', None) or err})") from None
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as err:
+        raise EbgError(f"--result = {name}: not JSON (line {err.lineno}, column {err.colno}: {err.msg})") from None
+    scc21 = data.get("scc21") if isinstance(data, dict) else None
+    if not isinstance(scc21, dict) or "notch_hz" not in scc21:
+        raise EbgError(f"--result = {name}: has no key scc21.notch_hz (a result file of the full-wave command or "
+                       "the fast model carries it)")
+    notch = scc21["notch_hz"]
+    if isinstance(notch, bool) or not isinstance(notch, (int, float)) or not math.isfinite(notch) or notch <= 0:
+        raise EbgError(f"--result = {name}: scc21.notch_hz = {notch!r}: must be a frequency in Hz > 0")
+    if scc21.get("notch_at_grid_edge"):
+        raise EbgError(f"--result = {name}: scc21.notch_hz = {notch / 1e9:.6g} GHz lies on the edge of the sweep, "
+                       "so the true notch may lie outside it; widen the sweep and run again")
+    source = data.get("source")
+    depth = scc21.get("depth_db")
+    return ObservedNotch(notch_hz=float(notch), source=source if isinstance(source, str) else "(not stated)",
+                         path=name, depth_db=depth if isinstance(depth, (int, float)) else None,
+                         reached_threshold=scc21.get("stopband_hz") is not None)
 
 
 def format_response(data: dict) -> str:
@@ -203,6 +266,21 @@ def _runs(freq: np.ndarray, curve: np.ndarray, threshold_db: float) -> list[tupl
         high = freq[-1] if b == len(curve) - 1 else _crossing(freq, curve, b, b + 1, threshold_db)
         runs.append((float(low), float(high), a == 0, b == len(curve) - 1))
     return runs
+
+
+def _vertex(freq: np.ndarray, curve: np.ndarray, k: int) -> float:
+    """Frequency of the minimum of the parabola through |S|^2 (linear power) at grid points k-1, k, k+1."""
+    if k == 0 or k == len(freq) - 1:
+        return float(freq[k])
+    x = freq[k - 1:k + 2]
+    y = 10.0 ** (curve[k - 1:k + 2] / 10.0)
+    # divided differences: y = y0 + d01 (f - x0) + d012 (f - x0)(f - x1); the vertex is where the slope is 0
+    d01 = (y[1] - y[0]) / (x[1] - x[0])
+    d12 = (y[2] - y[1]) / (x[2] - x[1])
+    d012 = (d12 - d01) / (x[2] - x[0])
+    if not d012 > 0:
+        return float(freq[k])
+    return float(np.clip((x[0] + x[1]) / 2 - d01 / (2 * d012), x[0], x[2]))
 
 
 def _crossing(freq: np.ndarray, curve: np.ndarray, i: int, j: int, threshold_db: float) -> float:

@@ -170,6 +170,8 @@ class FilterSpec:
     gds_layers: tuple[tuple[str, int, int], ...] = ()
     track_obstacles: tuple[TrackObstacle, ...] = ()
     via_obstacles: tuple[ViaObstacle, ...] = ()
+    units: str = field(default="mm", compare=False)
+    """The spec file's length unit: every length shown to the user is written in it (lengths inside stay mm)."""
     echo: dict = field(default_factory=dict, compare=False, hash=False)
 
     @property
@@ -257,6 +259,7 @@ def spec_from_dict(raw: dict, default_name: str = "filter") -> FilterSpec:
         gds_layers=value("gds"),
         track_obstacles=value("obstacles.tracks"),
         via_obstacles=value("obstacles.vias"),
+        units=units.lower(),
         echo=raw,
     )
     turn = value("cut.turn_clearance") if flat.get("cut.turn_clearance") is not None else spec.lane_pitch

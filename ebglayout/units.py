@@ -92,6 +92,23 @@ def format_mm(value: float) -> str:
     return f"{value:.6g} mm"
 
 
+def in_units(mm: float, units: str) -> float:
+    """A length in mm expressed in ``units`` (one of LENGTH_UNITS_MM)."""
+    return mm / LENGTH_UNITS_MM[units]
+
+
+def format_length(mm: float, units: str = "mm", digits: int = 4, power: int = 1, sign: bool = False) -> str:
+    """A length (``power`` 2: an area in mm2) for people, in the user's units with the unit written:
+    0.1524 mm in "mil" -> "6 mil"."""
+    value = mm / LENGTH_UNITS_MM[units] ** power
+    return f"{value:{'+' if sign else ''}.{digits}g} {units}{'2' if power == 2 else ''}"
+
+
+def spec_number(mm: float, units: str) -> str:
+    """A length as a bare TOML number in a spec whose ``units`` are given, exact to the 1 nm grid when read back."""
+    return f"{in_units(snap(mm), units):.12g}"
+
+
 def format_hz(value: float) -> str:
     """Short text for a frequency: 7.95e9 -> "7.95 GHz"."""
     for unit, scale in (("GHz", 1e9), ("MHz", 1e6), ("kHz", 1e3)):

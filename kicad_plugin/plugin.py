@@ -109,7 +109,9 @@ def _write_rules(board, text: str) -> None:
     path = _rules_path(board)
     if path is None:
         raise RuntimeError("save the board once first: the fill rule is written beside it as <board>.kicad_dru")
-    tmp = path.with_name(f".{path.name}.part")
+    from ebglayout.outputs import unfinished_name
+
+    tmp = path.with_name(unfinished_name(path.name))
     tmp.write_text(text, encoding="utf-8")
     os.replace(tmp, path)
 

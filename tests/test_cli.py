@@ -16,9 +16,9 @@ from ebglayout.spec import load_spec
 
 from conftest import ROOT, SAMPLE_SPECS
 
-REPORT_KEYS = {"filter", "spec", "stackup", "cells", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width",
-               "gds_layers", "route", "checks", "findings", "estimate", "caution"}
-CHECK_KEYS = {"filter", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width", "summary", "rules",
+REPORT_KEYS = {"filter", "units", "spec", "stackup", "cells", "crossings", "crossings_by_layer", "min_slot_width",
+               "min_copper_width", "gds_layers", "route", "checks", "findings", "estimate", "caution"}
+CHECK_KEYS = {"filter", "units", "crossings", "crossings_by_layer", "min_slot_width", "min_copper_width", "summary", "rules",
               "findings"}
 FINDING_KEYS = {"rule", "severity", "message", "at", "value", "limit", "layer"}
 
@@ -31,8 +31,8 @@ def test_demo_writes_every_output_for_every_sample(tmp_path, capsys):
         name = load_spec(path).name
         folder = out / name
         assert sorted(p.name for p in folder.iterdir()) == sorted(
-            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru")] + ["report.json"])
-        report = json.loads((folder / "report.json").read_text())
+            [f"{name}.{ext}" for ext in ("dxf", "gds", "png", "svg", "kicad_mod", "kicad_dru", "report.json")])
+        report = json.loads((folder / f"{name}.report.json").read_text())
         assert set(report) == REPORT_KEYS
         assert report["crossings"]["P"] == report["crossings"]["N"] > 0
         assert all(set(f) == FINDING_KEYS for f in report["findings"])
@@ -82,7 +82,7 @@ def test_check_failure_names_rule_value_limit_and_place(tmp_path, capsys):
     junit = tmp_path / "rules.xml"
     assert main(["check", str(spec), "--junit", str(junit)]) == 1
     out = capsys.readouterr().out
-    assert "ERROR   slot-width: In1.Cu: slot 0.15 mm wide (min 0.2) at (" in out
+    assert "ERROR   slot-width: In1.Cu: slot 0.15 mm wide (min 0.2 mm) at (" in out
     failing = [c for c in ET.parse(junit).getroot().iter("testcase") if c.find("failure") is not None]
     assert [c.get("name") for c in failing] == ["slot-width"]
 
@@ -106,7 +106,7 @@ def test_estimate_size_refine(capsys):
     # f10 = c / (2 a sqrt(er)) (cavity model) solved for a at 16 GHz, er 4.1: hand-computed 4.6268 mm
     assert sized["patch"][0] == pytest.approx(299792458 / (2 * 16e9 * 4.1 ** 0.5) * 1e3, rel=1e-4)
     assert main(["refine", str(SAMPLE_SPECS[0]), "--observed", "15.2GHz"]) == 0
-    assert "cut.patches" in capsys.readouterr().out
+    assert "patches = [[" in capsys.readouterr().out
     assert main(["size", "--target", "8GHz", "--er", "40"]) == 2
 
 
@@ -130,7 +130,7 @@ def test_failure_inside_a_writer_leaves_no_partial_file(tmp_path, monkeypatch, c
     def broken(*args, **kwargs):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(preview, "write_preview", broken)
+    monkeypatch.setattr(preview, "write_png", broken)
     out = tmp_path / "out"
     assert main(["build", str(SAMPLE_SPECS[0]), "--out", str(out)]) == 2
     assert "No space left on device" in capsys.readouterr().err

@@ -73,7 +73,7 @@ def test_place_keeps_input_and_every_other_byte(board_copy, tmp_path, capsys):
     assert after.startswith(before[:cut]) and after.endswith(before[cut:])
     assert (tmp_path / "hub_filtered.kicad_dru").exists()
     art = tmp_path / "art" / "HX2_L0_TX_hx2_l0_tx_straight"
-    report = json.loads((art / "report.json").read_text())
+    report = json.loads((art / "HX2_L0_TX_hx2_l0_tx_straight.report.json").read_text())
     assert report["crossings"] == {"P": 6, "N": 6}
     new = read_board(out)
     assert len(new.footprints) == len(read_board(board_copy).footprints) + 1
@@ -115,7 +115,7 @@ def test_check_board_finds_a_track_routed_through_the_cut_later(board_copy, tmp_
     code, out = place_straight(board_copy, tmp_path, capsys)
     reports = check_board(out)
     assert len(reports) == 1 and not reports[0].errors
-    layout_report = json.loads((tmp_path / "art" / "HX2_L0_TX_hx2_l0_tx_straight" / "report.json").read_text())
+    layout_report = json.loads((tmp_path / "art" / "HX2_L0_TX_hx2_l0_tx_straight" / "HX2_L0_TX_hx2_l0_tx_straight.report.json").read_text())
     cx, cy = layout_report["cells"][1]["centre"]
     text = out.read_text()
     net = read_board(out).nets.index("HX2_IRQ") if "HX2_IRQ" in read_board(out).nets else 0

@@ -8,14 +8,13 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-PIL = pytest.importorskip("PIL", reason="Pillow is a dependency of ebglayout (pip install -e .)")
-from PIL import Image  # noqa: E402
+from PIL import Image
 
-from ebglayout.export.drawing import COLOURS, SIZE_PX  # noqa: E402
-from ebglayout.export.response_plot import plot_frame, source_label, write_response_plot  # noqa: E402
-from ebglayout.response import response_json  # noqa: E402
-from ebglayout.sparams import mixed_mode  # noqa: E402
-from test_response import common_mode_notch_network  # noqa: E402
+from ebglayout.export.drawing import COLOURS, SIZE_PX
+from ebglayout.export.response_plot import plot_frame, source_label, write_response_plot
+from ebglayout.response import corners_json, db20, response_json
+from ebglayout.sparams import mixed_mode
+from test_response import common_mode_notch_network
 
 SVG = "{http://www.w3.org/2000/svg}"
 
@@ -52,9 +51,10 @@ def test_svg_curves_map_back_to_the_data(result, tmp_path):
             assert ghz[k] == pytest.approx(freq[k], abs=0.01 * px_ghz)
             expected = min(max(result[f"{role}_db"][k], frame.db0), frame.db1)
             assert db[k] == pytest.approx(expected, abs=0.01 * px_db)
-    # the notch is the lowest point of the common-mode curve, and the shaded band spans the stopband
+    # the notch is at the lowest point of the common-mode curve, and the shaded band spans the stopband
     scc = path_points(root, "scc21")
-    assert freq[np.argmax(scc[:, 1])] == pytest.approx(result["scc21"]["notch_hz"] / 1e9)
+    step = freq[1] - freq[0]
+    assert freq[np.argmax(scc[:, 1])] == pytest.approx(result["scc21"]["notch_hz"] / 1e9, abs=step / 2)
     (band,) = [p for p in root.iter(f"{SVG}path") if p.get("class") == "stopband"]
     xs = np.array(band.get("d").lstrip("M").rstrip("Z").split(), dtype=float).reshape(-1, 2)[:, 0]
     low, high = (frame.ghz0 + (x - left) / (right - left) * (frame.ghz1 - frame.ghz0) for x in (xs.min(), xs.max()))
@@ -84,3 +84,27 @@ def test_plot_files_are_byte_stable(result, tmp_path):
 def test_source_labels():
     assert source_label("full-wave: openEMS 0.0.33 FDTD, preset default") == "full-wave (openEMS)"
     assert source_label("model: transmission-line cells") == "model"
+
+
+def test_band_rejected_at_every_corner_is_drawn_where_corners_json_puts_it(tmp_path):
+    """Three shifted resonators as tolerance corners: the striped band spans corners_json's guaranteed band."""
+    curves = {}
+    for k in (0.98, 1.0, 1.02):
+        network, _, _ = common_mode_notch_network(8e9 * k)
+        curves[f"er x{k}"] = db20(mixed_mode(network).scc21)
+    network, _, _ = common_mode_notch_network()
+    mm = mixed_mode(network)
+    tolerance = corners_json(mm.freq_hz, curves)
+    data = response_json(mm, source="model: test", target_hz=8e9, extra={"tolerance": tolerance})
+    svg, _ = write_response_plot(data, tmp_path / "t.svg", tmp_path / "t.png")
+    root = ET.parse(svg).getroot()
+    frame = plot_frame(data)
+    left, _, right, _ = frame.box
+    ((low, high),) = tolerance["guaranteed_stopband_hz"]
+    (band,) = [p for p in root.iter(f"{SVG}path") if p.get("class") == "guaranteed"]
+    xs = np.array(band.get("d").lstrip("M").rstrip("Z").split(), dtype=float).reshape(-1, 2)[:, 0]
+    found = [frame.ghz0 + (x - left) / (right - left) * (frame.ghz1 - frame.ghz0) for x in (xs.min(), xs.max())]
+    px_ghz = (frame.ghz1 - frame.ghz0) / (right - left)
+    assert found == pytest.approx([low / 1e9, high / 1e9], abs=0.01 * px_ghz)
+    texts = " ".join(t.text for t in root.iter(f"{SVG}text"))
+    assert "rejected at all 3 corners" in texts and f"all reject {low / 1e9:.4g}-{high / 1e9:.4g} GHz" in texts

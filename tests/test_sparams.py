@@ -16,11 +16,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import skrf
 
-skrf = pytest.importorskip("skrf", reason="scikit-rf is a dependency of ebglayout (pip install -e .)")
-
-from ebglayout.errors import EbgError  # noqa: E402
-from ebglayout.sparams import mixed_mode, touchstone_text, write_touchstone  # noqa: E402
+from ebglayout.errors import EbgError
+from ebglayout.sparams import mixed_mode, touchstone_text, write_touchstone
 
 FREQ = skrf.Frequency(1, 20, 39, "GHz")
 C0 = 299_792_458.0

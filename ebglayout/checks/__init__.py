@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from ..units import format_length, in_units
+
 
 @dataclass(frozen=True)
 class Finding:
@@ -38,6 +40,8 @@ class CheckReport:
     crossings_by_layer: dict
     min_slot_width: float | None
     min_copper_width: float | None
+    units: str = "mm"
+    """The spec's length unit: the table is written in it; the JSON stays in mm."""
 
     @property
     def findings(self) -> list[Finding]:
@@ -60,6 +64,7 @@ class CheckReport:
     def to_json(self) -> dict:
         return {
             "filter": self.name,
+            "units": {"length": "mm", "area": "mm2", "spec": self.units},
             "crossings": self.crossings,
             "crossings_by_layer": self.crossings_by_layer,
             "min_slot_width": _round(self.min_slot_width),
@@ -74,21 +79,30 @@ class CheckReport:
         }
 
     def format_table(self) -> str:
-        """Terminal table grouped by rule: checked, errors, warnings, worst value against the limit."""
+        """Terminal table grouped by rule: checked, errors, warnings, worst value against the limit; lengths,
+        areas and positions in the spec's units."""
         lines = [f"{self.name}: crossings P={self.crossings['P']} N={self.crossings['N']}, "
-                 f"min slot {_fmt(self.min_slot_width)} mm, min copper {_fmt(self.min_copper_width)} mm",
-                 f"  {'rule':<18} {'checked':>7} {'errors':>6} {'warn':>5}  {'worst':>10} {'limit':>10}  status"]
+                 f"min slot {self._show(self.min_slot_width, 'mm')}, "
+                 f"min copper {self._show(self.min_copper_width, 'mm')}",
+                 f"  {'rule':<18} {'checked':>7} {'errors':>6} {'warn':>5}  {'worst':>12} {'limit':>12}  status"]
         for r in self.results:
             errors = sum(f.severity == "error" for f in r.findings)
             warnings = len(r.findings) - errors
             status = "FAIL" if errors else ("warn" if warnings else ("pass" if r.checked else "n/a"))
-            worst = f"{_fmt(r.worst)} {r.unit}".strip() if r.worst is not None else "-"
-            limit = f"{_fmt(r.limit)} {r.unit}".strip() if r.limit is not None else "-"
-            lines.append(f"  {r.rule:<18} {r.checked:>7} {errors:>6} {warnings:>5}  {worst:>10} {limit:>10}  {status}"
-                         + (f"  ({r.note})" if r.note else ""))
+            lines.append(f"  {r.rule:<18} {r.checked:>7} {errors:>6} {warnings:>5}  {self._show(r.worst, r.unit):>12} "
+                         f"{self._show(r.limit, r.unit):>12}  {status}" + (f"  ({r.note})" if r.note else ""))
         for f in self.findings:
-            lines.append(f"  {f.severity.upper():<7} {f.rule}: {f.message} at ({f.at[0]:.4f}, {f.at[1]:.4f})")
+            x, y = (in_units(c, self.units) for c in f.at)
+            lines.append(f"  {f.severity.upper():<7} {f.rule}: {f.message} at ({x:.6g}, {y:.6g}) {self.units}")
         return "\n".join(lines)
+
+    def _show(self, value, unit: str) -> str:
+        """A table value with its unit; mm and mm2 are turned into the spec's units."""
+        if value is None:
+            return "-"
+        if unit in ("mm", "mm2"):
+            return format_length(value, self.units, power=2 if unit == "mm2" else 1)
+        return f"{_fmt(value)} {unit}".strip()
 
 
 def _round(value):
@@ -119,4 +133,5 @@ def run_checks(layout, context=None, estimate=None) -> CheckReport:
         crossings_by_layer=by_layer,
         min_slot_width=worst["slot-width"],
         min_copper_width=worst["copper-width"],
+        units=layout.spec.units,
     )

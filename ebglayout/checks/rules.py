@@ -17,6 +17,7 @@ from shapely.ops import unary_union
 from ..crossing import Crossing
 from ..layout import Layout, effective_permittivity, skew_ps
 from ..spec import FilterSpec, TrackObstacle, ViaObstacle
+from ..units import format_length
 from . import Finding
 from .widths import width_check
 
@@ -68,6 +69,16 @@ RULES: tuple[Rule, ...] = (
     Rule("kicad-fill", "(boards only) settings that would keep KiCad's pour from reproducing the cut: missing or "
          "overridden rule, plane min width above a web, zone priorities, unfilled or hatched planes", "none",
          "measured with the zone filler of KiCad 6.0.11 and 9.0.2 (tests/test_kicad_fill.py)"),
+    Rule("placed-slot", "(boards only) the slots on the board, read from the filter footprint's rule areas and copper, "
+         "are the stored design's: every designed slot inside the rule areas and clear of patch copper, nothing cut "
+         "beyond it", "0 mm2 differing",
+         "geometry: the design that was checked when placed is the reference (differences under 1 um are rounding)"),
+    Rule("placed-copper", "(boards only) the patch and bridge copper on the board (footprint polygons and copper zones) "
+         "is the stored design's: no patch removed, edited or moved", "0 mm2 differing",
+         "geometry: the design that was checked when placed is the reference (differences under 1 um are rounding)"),
+    Rule("placed-footprint", "(boards only) the filter footprint sits where it was placed: same position, rotation 0, "
+         "front side, a cut on each of the design's plane layers and no other, under the pair", "0 mm moved",
+         "geometry: a moved, turned or flipped footprint takes its cut away from the pair it was designed for"),
     Rule("notch-target", "estimated notch band covers the target over the er/h tolerance sweep", "target_tolerance = 15 %",
          "cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., sec. 9.7, from memory)"),
 )
@@ -123,6 +134,11 @@ def _paired(layout: Layout, layer: str) -> tuple[list[Crossing], list[Crossing]]
     return p, n
 
 
+def shown(layout: Layout, mm: float, power: int = 1, sign: bool = False) -> str:
+    """A length (``power`` 2: an area) in the spec's units, with the unit written: text for people."""
+    return format_length(mm, layout.spec.units, power=power, sign=sign)
+
+
 def expected_crossings(spec: FilterSpec) -> int:
     """Full crossings per trace the style implies: 2 per cell, or count + 1 with shared slots, times the passes."""
     per_pass = spec.count + 1 if spec.web == 0 else 2 * spec.count
@@ -166,17 +182,18 @@ def crossing_along(layout: Layout, ctx: CheckContext) -> RuleResult:
         r.checked += 1
         if c.kind == "along":
             r.see(c.length, lower_is_worse=False)
-            r.add("error", f"{c.layer}: trace {c.polarity} runs {c.length:.4g} mm inside a slot and leaves onto the "
+            r.add("error", f"{c.layer}: trace {c.polarity} runs {shown(layout, c.length)} inside a slot and leaves onto the "
                   f"copper it came from ({c.bodies[0]})", c.point, c.length, 0.0, c.layer)
         elif c.kind == "ends":
             r.see(c.length, lower_is_worse=False)
-            r.add("error", f"{c.layer}: trace {c.polarity} ends inside a slot ({c.length:.4g} mm inside)",
+            r.add("error", f"{c.layer}: trace {c.polarity} ends inside a slot ({shown(layout, c.length)} inside)",
                   c.point, c.length, 0.0, c.layer)
     return r
 
 
-def _least_at_full_crossings(layout: Layout, rule: str, unit: str, limit: float, value, describe) -> RuleResult:
-    """A lower-bound rule evaluated at every full crossing: ``value(c)`` must stay >= ``limit``."""
+def _least_at_full_crossings(layout: Layout, rule: str, unit: str, limit: float, value, describe, show) -> RuleResult:
+    """A lower-bound rule evaluated at every full crossing: ``value(c)`` must stay >= ``limit`` (``show`` writes
+    a value with its unit)."""
     r = RuleResult(rule, unit=unit, limit=limit)
     for c in layout.crossings:
         v = value(c)
@@ -185,18 +202,20 @@ def _least_at_full_crossings(layout: Layout, rule: str, unit: str, limit: float,
         r.checked += 1
         r.see(v)
         if v < limit - 1e-6:
-            r.add("error", f"{c.layer}: trace {c.polarity} {describe(v)} (min {limit:g})", c.point, v, limit, c.layer)
+            r.add("error", f"{c.layer}: trace {c.polarity} {describe(show(v))} (min {show(limit)})", c.point, v, limit,
+                  c.layer)
     return r
 
 
 def crossing_angle(layout: Layout, ctx: CheckContext) -> RuleResult:
     return _least_at_full_crossings(layout, "crossing-angle", "deg", layout.spec.min_angle, lambda c: c.angle_deg,
-                                    lambda v: f"crosses a slot edge at {v:.1f} deg")
+                                    lambda v: f"crosses a slot edge at {v}", lambda v: f"{v:.1f} deg")
 
 
 def corner_margin(layout: Layout, ctx: CheckContext) -> RuleResult:
     return _least_at_full_crossings(layout, "corner-margin", "mm", layout.spec.corner_margin,
-                                    lambda c: c.corner_distance, lambda v: f"crosses {v:.4g} mm from a patch corner")
+                                    lambda c: c.corner_distance, lambda v: f"crosses {v} from a patch corner",
+                                    lambda v: shown(layout, v))
 
 
 def crossing_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
@@ -210,8 +229,8 @@ def crossing_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
             offset = abs(cp.s_centre - cn.s_centre)
             r.see(offset, lower_is_worse=False)
             if offset > spec.symmetry + 1e-6:
-                r.add("error", f"{cut.layer}: P and N cross this slot {offset:.4g} mm apart along the pair "
-                      f"(~{skew_ps(offset, er_eff):.3g} ps of skew; max {spec.symmetry:g} mm)",
+                r.add("error", f"{cut.layer}: P and N cross this slot {shown(layout, offset)} apart along the pair "
+                      f"(~{skew_ps(offset, er_eff):.3g} ps of skew; max {shown(layout, spec.symmetry)})",
                       cp.point, offset, spec.symmetry, cut.layer)
     return r
 
@@ -225,7 +244,7 @@ def slot_width(layout: Layout, ctx: CheckContext) -> RuleResult:
         if narrow:
             r.see(narrow.width)
         for place in places:
-            r.add("error", f"{cut.layer}: slot {place.width:.4g} mm wide (min {spec.min_slot:g})",
+            r.add("error", f"{cut.layer}: slot {shown(layout, place.width)} wide (min {shown(layout, spec.min_slot)})",
                   place.at, place.width, spec.min_slot, cut.layer)
     return r
 
@@ -250,7 +269,8 @@ def copper_width(layout: Layout, ctx: CheckContext) -> RuleResult:
         if narrow:
             r.see(narrow.width)
         for place in places:
-            r.add("error", f"{cut.layer}: copper neck {place.width:.4g} mm wide (min {spec.min_copper:g})",
+            r.add("error", f"{cut.layer}: copper neck {shown(layout, place.width)} wide "
+                  f"(min {shown(layout, spec.min_copper)})",
                   place.at, place.width, spec.min_copper, cut.layer)
     return r
 
@@ -266,7 +286,8 @@ def bridge_keepout(layout: Layout, ctx: CheckContext) -> RuleResult:
             r.see(distance)
             if distance < spec.bridge_keep - 1e-6:
                 c = bridge.centroid
-                r.add("error", f"{cut.layer}: bridge {distance:.4g} mm from a trace (keep {spec.bridge_keep:g})",
+                r.add("error", f"{cut.layer}: bridge {shown(layout, distance)} from a trace "
+                      f"(keep {shown(layout, spec.bridge_keep)})",
                       (c.x, c.y), distance, spec.bridge_keep, cut.layer)
     return r
 
@@ -287,7 +308,7 @@ def bridge_symmetry(layout: Layout, ctx: CheckContext) -> RuleResult:
             r.see(mismatch, lower_is_worse=False)
             if mismatch > 1e-6:
                 r.add("error", f"{cut.layer}: cell {cell.index} bridges are not mirror-symmetric about the pair "
-                      f"({mismatch:.4g} mm2 differ)", cell.centre, mismatch, 0.0, cut.layer)
+                      f"({shown(layout, mismatch, power=2)} differ)", cell.centre, mismatch, 0.0, cut.layer)
     return r
 
 
@@ -322,7 +343,7 @@ def cell_overlap(layout: Layout, ctx: CheckContext) -> RuleResult:
         if spec.web > 0 and adjacent:
             r.see(gap)
             if gap < spec.web - 1e-6:
-                r.add("error", f"cells {a.index} and {b.index}: web {gap:.4g} mm where cut.web = {spec.web:g}; "
+                r.add("error", f"cells {a.index} and {b.index}: web {shown(layout, gap)} where cut.web = {shown(layout, spec.web)}; "
                       "their slots merge", b.centre, gap, spec.web)
     return r
 
@@ -342,7 +363,8 @@ def plane_edge(layout: Layout, ctx: CheckContext) -> RuleResult:
         if not inside:
             r.add("error", f"cell {cell.index} is not inside the plane outline", cell.centre, 0.0, spec.edge_clearance)
         elif distance < spec.edge_clearance - 1e-6:
-            r.add("error", f"cell {cell.index} is {distance:.4g} mm from the plane edge (min {spec.edge_clearance:g})",
+            r.add("error", f"cell {cell.index} is {shown(layout, distance)} from the plane edge "
+                  f"(min {shown(layout, spec.edge_clearance)})",
                   cell.centre, distance, spec.edge_clearance)
     return r
 
@@ -439,7 +461,7 @@ def foreign_via(layout: Layout, ctx: CheckContext) -> RuleResult:
             elif gaps[k] < via.diameter:
                 gap = float(gaps[k])
                 r.see(gap)
-                r.add("warning", f"{cut.layer}: via/pad {via.net or '(no net)'} {gap:.4g} mm from a slot", via.at,
+                r.add("warning", f"{cut.layer}: via/pad {via.net or '(no net)'} {shown(layout, gap)} from a slot", via.at,
                       gap, via.diameter, cut.layer)
     return r
 
@@ -460,10 +482,10 @@ def fold_skew(layout: Layout, ctx: CheckContext) -> RuleResult:
     r.checked += 1
     r.see(ps, lower_is_worse=False)
     turns = len(layout.turns)
-    r.note = (f"P-N length through the filter {diff:+.4g} mm ({ps:.3g} ps)"
-              + (f"; {turns} U-turns alternating, {abs(layout.turns[0].p_minus_n):.4g} mm each" if turns else ""))
+    r.note = (f"P-N length through the filter {shown(layout, diff, sign=True)} ({ps:.3g} ps)"
+              + (f"; {turns} U-turns alternating, {shown(layout, abs(layout.turns[0].p_minus_n))} each" if turns else ""))
     if ps > spec.skew_limit_ps + 1e-9:
-        r.add("error", f"P-N length difference through the filter {diff:+.4g} mm = {ps:.3g} ps "
+        r.add("error", f"P-N length difference through the filter {shown(layout, diff, sign=True)} = {ps:.3g} ps "
               f"(max {spec.skew_limit_ps:g} ps)", p[0].point, ps, spec.skew_limit_ps)
     return r
 

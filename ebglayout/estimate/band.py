@@ -30,7 +30,7 @@ from shapely import affinity
 from shapely.geometry import Polygon
 
 from ..layout import Layout, PlacedCell
-from ..units import GRID_MM, format_hz
+from ..units import GRID_MM, format_hz, format_length
 from .cavity import polygon_modes, rect_modes
 from .lumped import lc_notch
 
@@ -193,8 +193,8 @@ def is_rectangle(polygon: Polygon, grid_mm: float = GRID_MM) -> bool:
     return abs(plain.minimum_rotated_rectangle.area - plain.area) <= 2 * grid_mm * plain.length
 
 
-def format_table(estimate: Estimate) -> str:
-    """Terminal table: per cell its modes, LC resonance and notch, then the band and the target."""
+def format_table(estimate: Estimate, units: str = "mm") -> str:
+    """Terminal table: per cell its modes, LC resonance and notch, then the band and the target (h in ``units``)."""
     rows = [("cell", "mode", "frequency", "method")]
     notes = []
     for cell in estimate.cells:
@@ -213,7 +213,7 @@ def format_table(estimate: Estimate) -> str:
     lines.insert(1, "  ".join("-" * w for w in widths))
     lines.append("")
     lines.append(f"band {format_hz(estimate.low_hz)} .. {format_hz(estimate.high_hz)} over er {estimate.er:g} "
-                 f"+-{estimate.er_tolerance:.0%} and h {estimate.h:g} mm +-{estimate.h_tolerance:.0%}")
+                 f"+-{estimate.er_tolerance:.0%} and h {format_length(estimate.h, units)} +-{estimate.h_tolerance:.0%}")
     if estimate.target_hz is not None:
         where = "inside" if estimate.target_in_band else "outside"
         lines.append(f"target {format_hz(estimate.target_hz)}: {where} the band")

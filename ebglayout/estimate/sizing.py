@@ -18,6 +18,7 @@ from ..cells.shape import rectangle
 from ..errors import EbgError, SpecError
 from ..layout import PlacedCell
 from ..spec import STYLES, FilterSpec
+from ..units import format_length, spec_number
 from .band import CAUTION, estimate_cell
 from .cavity import C0
 
@@ -103,7 +104,7 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
     return out
 
 
-def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
+def refine(spec: FilterSpec, observed_hz: float, keep: str = "across", observed_from: dict | None = None) -> dict:
     """Second pass: re-size every cell after a field solve of the first pass notched at ``observed_hz``.
 
     The usual two-stage correction: the model was off by f_obs / f_target, so
@@ -115,7 +116,7 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
     by the pair and the bridge keep-out) and re-sizes the along size;
     "aspect" scales both.  Returns {"target_hz", "observed_hz", "factor",
     "design_hz", "cells": [{"index", "model_hz", "design_hz", "patch"}],
-    "patches", "caution"}.
+    "patches", "caution"}, and "observed_from" (e.g. the result file and its source) when given.
     """
     if spec.target_hz is None:
         raise SpecError("target", "(missing)", "refine needs the spec's target frequency")
@@ -135,8 +136,11 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across") -> dict:
                                 spec.slot if bridge else None, size[1] if keep == "across" else None)
         cells.append({"index": i, "model_hz": _hz(model), "design_hz": _hz(model * factor), "patch": sized["patch"]})
         patches.append(sized["patch"])
-    return {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
-            "design_hz": _hz(spec.target_hz * factor), "cells": cells, "patches": patches, "caution": CAUTION}
+    out = {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
+           "design_hz": _hz(spec.target_hz * factor), "cells": cells, "patches": patches, "caution": CAUTION}
+    if observed_from:
+        out["observed_from"] = dict(observed_from)
+    return out
 
 
 def _cell(size: tuple[float, float], bridged: SimpleNamespace | None) -> PlacedCell:
@@ -166,24 +170,42 @@ def _hz(value: float) -> float:
     return float(round(value, -3))
 
 
-def format_sizing(result: dict) -> str:
-    """Terminal summary of ``size_for_target``."""
-    a, b = result["patch"]
-    lines = [f"style {result['style']}: patch {a:.4g} mm along x {b:.4g} mm across for "
+def format_sizing(result: dict, units: str = "mm") -> str:
+    """Terminal summary of ``size_for_target``, lengths in ``units``, ending with a ``patch`` line to paste into
+    the [cut] table of a spec whose units are ``units``."""
+    a, b = (format_length(v, units) for v in result["patch"])
+    lines = [f"style {result['style']}: patch {a} along x {b} across for "
              f"{result['target_hz'] / 1e9:.4g} GHz at er {result['er']:g} ({result['governs']} governs)"]
     if result.get("bridge"):
         br = result["bridge"]
-        lines.append(f"bridges: {br['per_side']} per side, {br['width']:g} mm wide, {br['length']:g} mm long, "
-                     f"slot {br['slot']:g} mm; LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+        lines.append(f"bridges: {br['per_side']} per side, {format_length(br['width'], units)} wide, "
+                     f"{format_length(br['length'], units)} long, slot {format_length(br['slot'], units)}; "
+                     f"LC notch {result['lc_f_hz'] / 1e9:.4g} GHz")
+    lines.append(f'paste into the spec\'s [cut] table (units = "{units}"):')
+    lines.append(f"patch = {_spec_pair(result['patch'], units)}")
     lines.append(f"caution: {result['caution']}")
     return "\n".join(lines)
 
 
-def format_refine(result: dict) -> str:
-    """Terminal summary of ``refine``: the correction factor and the new patch sizes as a cut.patches line."""
-    lines = [f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
-             f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})"]
+def format_refine(result: dict, units: str = "mm") -> str:
+    """Terminal summary of ``refine``, lengths in the spec's ``units``: where the observed notch came from, the
+    correction factor and the new patch sizes as a ``patches`` line to paste into the spec's [cut] table in place
+    of ``patch`` and ``count``."""
+    lines = []
+    origin = result.get("observed_from")
+    if origin:
+        lines.append(f"observed notch from {origin['file']} ({origin['source']})")
+        if origin.get("note"):
+            lines.append(f"note: {origin['note']}")
+    lines.append(f"target {result['target_hz'] / 1e9:.4g} GHz, observed {result['observed_hz'] / 1e9:.4g} GHz: "
+                 f"design for {result['design_hz'] / 1e9:.4g} GHz (factor {result['factor']:.4f})")
     for cell in result["cells"]:
-        lines.append(f"  cell {cell['index']}: patch {cell['patch'][0]:.4g} x {cell['patch'][1]:.4g} mm")
-    lines.append("cut.patches = [" + ", ".join(f"[{a:g}, {b:g}]" for a, b in result["patches"]) + "]")
+        a, b = (format_length(v, units) for v in cell["patch"])
+        lines.append(f"  cell {cell['index']}: patch {a} along x {b} across")
+    lines.append(f'paste into the spec\'s [cut] table in place of patch and count (units = "{units}"):')
+    lines.append("patches = [" + ", ".join(_spec_pair(p, units) for p in result["patches"]) + "]")
     return "\n".join(lines)
+
+
+def _spec_pair(mm: list, units: str) -> str:
+    return "[" + ", ".join(spec_number(v, units) for v in mm) + "]"

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator
@@ -52,18 +51,24 @@ class CellFrame:
 
 @contextmanager
 def atomic_path(path: str | Path) -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; move it onto ``path`` only if the block succeeds."""
+    """Yield a staged path beside ``path``; move it onto ``path`` only if the block succeeds.
+
+    A path that is already a staged output (see ``ebglayout.outputs``) is written directly: the run that staged
+    it moves it into place.
+    """
+    from ..outputs import UNFINISHED, unfinished_name
+
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    tmp_path = Path(tmp)
-    os.chmod(tmp_path, 0o644)
+    if UNFINISHED in path.name:
+        yield path
+        return
+    tmp_path = path.with_name(unfinished_name(path.name))
     try:
         yield tmp_path
+        os.chmod(tmp_path, 0o644)
         os.replace(tmp_path, path)
     finally:
-        if tmp_path.exists():
-            tmp_path.unlink()
+        tmp_path.unlink(missing_ok=True)
 
 
 __all__ = ["CAUTION", "EXTENSIONS", "CellFrame", "atomic_path"]

@@ -14,9 +14,11 @@ from typing import Sequence
 
 import numpy as np
 import shapely
-from shapely.geometry import Point, Polygon, box
+from shapely.affinity import affine_transform
+from shapely.geometry import LineString, Point, Polygon, box
 
 from ..layout import Layout, PlaneCut
+from ..units import LENGTH_UNITS_MM, format_length
 from . import CAUTION, CellFrame
 
 SIZE_PX = (1440, 900)
@@ -29,6 +31,7 @@ COLOURS = {
     "P": "#1f5fbf", "N": "#8e44ad", "hatch": "#ffffff", "full": "#111111", "other": "#e6007e",
     "error": "#d62728", "warning": "#ff8c00", "dim": "#2b2b2b", "caution": "#8b0000",
     "band": "#cde8cd", "target": "#2e7d32", "mode": "#333333", "lc": "#8c4a1c", "notch": "#1565c0",
+    "track": "#3f7f6a", "via": "#5c5c5c", "cell": "#3b2a14",
 }
 MAIN_BOX = (80.0, 128.0, 1016.0, 818.0)
 """left, top, right, bottom (px) of the drawing panels; the right column holds legend, summary and notch plot."""
@@ -38,6 +41,11 @@ LEGEND_AT = (1052.0, 118.0)
 SUMMARY_AT = (1050.0, 398.0)
 CAP, DESCENT = 0.73, 0.24
 """DejaVu Sans cap height and descent as fractions of the font size, used to place text by its top or bottom."""
+ASCENT, ADVANCE = 0.8, 0.7
+"""Bounds of DejaVu Sans (Bold) lettering as fractions of the font size: the tallest letters' ascent, and an
+advance per character at least as wide as any rule id's average (0.66 measured), used to keep labels apart."""
+LABEL_SIZE = 14.0
+
 
 
 @dataclass(frozen=True)
@@ -128,10 +136,23 @@ class Text:
     mono: bool = False
     halo: bool = False
     rotate: int = 0
+    role: str = ""
+
+    def box(self) -> tuple[float, float, float, float]:
+        """Page box (x0, y0, x1, y1) the text's lettering and halo stay within (horizontal text)."""
+        width = ADVANCE * self.size * len(self.text)
+        x0 = self.x - {"start": 0.0, "middle": width / 2, "end": width}[self.anchor]
+        pad = 2.0 if self.halo else 0.0
+        return (x0 - pad, self.y - ASCENT * self.size - pad, x0 + width + pad, self.y + DESCENT * self.size + pad)
 
 
-def build_drawing(layout: Layout, findings: Sequence = (), notch: dict | None = None) -> list:
-    """The preview as a list of primitives, in painting order."""
+def build_drawing(layout: Layout, findings: Sequence = (), notch: dict | None = None, tracks=None,
+                  vias=None) -> list:
+    """The preview as a list of primitives, in painting order.  ``tracks`` and ``vias`` are the other copper
+    (default: the spec's obstacles; a board placement passes the board's)."""
+    spec = layout.spec
+    tracks = spec.track_obstacles if tracks is None else tracks
+    vias = spec.via_obstacles if vias is None else vias
     items: list = [Text(29, 34, drawing_title(layout), 20, COLOURS["text"], bold=True),
                    Text(29, 74, _subtitle(layout), 15, COLOURS["text"])]
     groups = _cut_groups(layout.cuts)
@@ -139,12 +160,16 @@ def build_drawing(layout: Layout, findings: Sequence = (), notch: dict | None = 
     height = (bottom - top - PANEL_GAP * (len(groups) - 1)) / len(groups)
     x0, y0, x1, y1 = _view(layout, findings, (right - left) / height)
     scale = (right - left) / (x1 - x0)
+    unlabelled = 0
     for k, group in enumerate(groups):
         view = View(x0, y0, x1, y1, left, top + k * (height + PANEL_GAP), scale)
-        items += _panel(layout, group, findings, view, dimensions=(k == 0))
-    items += _legend_items(_legend_entries(layout, findings), *LEGEND_AT, row=21.0, columns=1, size=14.0)
+        panel, left_out = _panel(layout, group, findings, view, (k == 0), tracks, vias)
+        items += panel
+        unlabelled += left_out
+    items += _legend_items(_legend_entries(layout, findings, tracks, vias), *LEGEND_AT, row=21.0, columns=1,
+                           size=14.0)
     x, y = SUMMARY_AT
-    for i, line in enumerate(_summary(layout, findings)):
+    for i, line in enumerate(_summary(layout, findings, unlabelled)):
         indent = len(line) - len(line.lstrip(" "))
         items.append(Text(x + 8 * indent, y + 16.5 * i, line.strip(), 13, COLOURS["text"], mono=True))
     if notch:
@@ -164,8 +189,8 @@ def drawing_title(layout: Layout) -> str:
 
 def _subtitle(layout: Layout) -> str:
     spec = layout.spec
-    text = (f"pair on {spec.pair_layer}, cut in {', '.join(spec.plane_layers)}; board coordinates in mm; "
-            f"slot {spec.slot:.3f} mm, web {spec.web:.3f} mm")
+    text = (f"pair on {spec.pair_layer}, cut in {', '.join(spec.plane_layers)}; board coordinates in {spec.units}; "
+            f"slot {format_length(spec.slot, spec.units)}, web {format_length(spec.web, spec.units)}")
     if spec.target_hz:
         text += f"; notch target {spec.target_hz / 1e9:.2f} GHz"
     return text
@@ -188,18 +213,9 @@ def _cut_groups(cuts: Sequence[PlaneCut]) -> list[list[PlaneCut]]:
 
 
 def _view(layout: Layout, findings: Sequence, aspect: float) -> tuple[float, float, float, float]:
-    """Board window: the cut, the traces near it and any finding, widened to the panel's aspect (1 mm = 1 mm)."""
+    """Board window: the cut, the whole route and every finding, widened to the panel's aspect (1 mm = 1 mm)."""
     boxes = [c.outline.bounds for c in layout.cuts if not c.outline.is_empty]
-    if not boxes:
-        boxes = [t.polygon.bounds for t in layout.traces]
-    cx0, cy0 = min(b[0] for b in boxes), min(b[1] for b in boxes)
-    cx1, cy1 = max(b[2] for b in boxes), max(b[3] for b in boxes)
-    reach = max(2.0, 0.6 * max(cx1 - cx0, cy1 - cy0))
-    near = box(cx0 - reach, cy0 - reach, cx1 + reach, cy1 + reach)
-    for trace in layout.traces:
-        part = trace.polygon.intersection(near)
-        if not part.is_empty:
-            boxes.append(part.bounds)
+    boxes += [t.polygon.bounds for t in layout.traces if not t.polygon.is_empty]
     xs = [f.at[0] for f in findings] + [b[0] for b in boxes] + [b[2] for b in boxes]
     ys = [f.at[1] for f in findings] + [b[1] for b in boxes] + [b[3] for b in boxes]
     x0, x1, y0, y1 = min(xs), max(xs), min(ys), max(ys)
@@ -247,7 +263,9 @@ def _baseline(y: float, va: str, size: float) -> float:
 ANCHOR = {"left": "start", "center": "middle", "right": "end"}
 
 
-def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View, dimensions: bool) -> list:
+def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View, dimensions: bool,
+           tracks: Sequence = (), vias: Sequence = ()) -> tuple[list, int]:
+    """One plane cut's panel; also the number of findings whose rule id found no free place to be written."""
     spec = layout.spec
     cut = group[0]
     layers = [c.layer for c in group]
@@ -266,11 +284,16 @@ def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View
         for piece in getattr(rim, "geoms", [rim]):
             if piece.geom_type == "LineString" and not piece.is_empty:
                 items.append(Polyline(np.asarray(piece.coords), COLOURS["edge"], 1.2, (6.0, 4.0), view, "outline"))
+    copper = _other_copper(tracks, vias, window)
+    items += [_fill(copper["track"], COLOURS["track"], view, "track", alpha=TRACE_ALPHA),
+              _fill(copper["via"], COLOURS["via"], view, "via", edge=COLOURS["page"], edge_px=0.8)]
     for trace in layout.traces:
         hatch = COLOURS["hatch"] if trace.polarity == "N" else None
         items.append(_fill(trace.polygon.intersection(window), COLOURS[trace.polarity], view,
                            f"trace-{trace.polarity}", alpha=TRACE_ALPHA, hatch=hatch))
-    items += [_trace_label(trace, window, cut.outline, view) for trace in layout.traces]
+    net_labels = _inside(view, [t for t in (_trace_label(trace, window, cut.outline, view)
+                                            for trace in layout.traces) if t])
+    items += net_labels
     here = [c for c in layout.crossings if c.layer == cut.layer]
     full = tuple(view.px(*c.point) for c in here if c.kind == "full")
     other = tuple(view.px(*c.point) for c in here if c.kind != "full")
@@ -279,18 +302,143 @@ def _panel(layout: Layout, group: list[PlaneCut], findings: Sequence, view: View
         items.append(Markers(full, "dot", 6.0 if rim else 3.0, COLOURS["full"], rim, 0.8, "full"))
     if other:
         items.append(Markers(other, "x", 15.0 if rim else 9.0, COLOURS["other"], rim, 1.0, "other"))
+    numbers = _cell_numbers(layout, view)
+    items += numbers
     if dimensions and layout.cells and min(layout.cells[0].size) * view.scale >= 40.0:
-        items += _dimensions(layout, view)
-    for f in _findings_for(findings, layers, spec.plane_layers):
-        colour = COLOURS["error"] if f.severity == "error" else COLOURS["warning"]
-        x, y = view.px(*f.at)
-        items.append(Markers(((x, y),), "ring", 23.0, None, colour, 3.0, "finding"))
-        items.append(Text(x + 15, y - 15, f.rule, 14, colour, bold=True, halo=True))
+        dims = _dimensions(layout, view)
+        items += dims
+        numbers = numbers + [d for d in dims if isinstance(d, Text)]
+    units = spec.units
+    rings, labels, left_out = _finding_marks(_findings_for(findings, layers, spec.plane_layers), view,
+                                             _page_shape([t.polygon for t in layout.traces] + list(copper.values()),
+                                                         view),
+                                             [t.box() for t in net_labels + numbers])
+    items += rings + labels
+    scale = LENGTH_UNITS_MM[units]
     items += _axes((view.left, view.top, view.right, view.bottom),
-                   [(view.px(v, 0)[0], s) for v, s in _ticks(view.x0, view.x1, (view.right - view.left) / 110)],
-                   [(view.px(0, v)[1], s) for v, s in _ticks(view.y0, view.y1, (view.bottom - view.top) / 80)],
-                   "x (mm)", "y (mm)")
-    return [i for i in items if i is not None]
+                   [(view.px(v * scale, 0)[0], s) for v, s in
+                    _ticks(view.x0 / scale, view.x1 / scale, (view.right - view.left) / 110)],
+                   [(view.px(0, v * scale)[1], s) for v, s in
+                    _ticks(view.y0 / scale, view.y1 / scale, (view.bottom - view.top) / 80)],
+                   f"x ({units})", f"y ({units})")
+    return [i for i in items if i is not None], left_out
+
+
+def _inside(view: View, labels: list) -> list:
+    """Net labels kept inside the panel: one that sticks out on a side is turned to end (or start) where the
+    label before it ends (or starts), away from that side, and moved down past any label it would then overlap."""
+    from dataclasses import replace
+
+    placed: list = []
+    for text in labels:
+        x0, _, x1, _ = text.box()
+        if x1 > view.right - 4:
+            end = min([view.right - 4] + [o.box()[2] for o in placed])
+            text = replace(text, anchor="end", x=end - 2)
+        elif x0 < view.left + 4:
+            start = max([view.left + 4] + [o.box()[0] for o in placed])
+            text = replace(text, anchor="start", x=start + 2)
+        for other in placed:
+            a, b = text.box(), other.box()
+            if a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]:
+                text = replace(text, y=text.y + (b[3] - a[1]) + 2)
+        placed.append(text)
+    return placed
+
+
+def _other_copper(tracks: Sequence, vias: Sequence, window) -> dict:
+    """Other tracks (at their width, round ends) and vias/pads (at their diameter) inside the window."""
+    shapes = {"track": [LineString(t.points).buffer(t.width / 2, quad_segs=8) for t in tracks if len(t.points) > 1],
+              "via": [Point(v.at).buffer(v.diameter / 2, quad_segs=8) for v in vias]}
+    return {role: shapely.union_all(parts).intersection(window) if parts else Polygon()
+            for role, parts in shapes.items()}
+
+
+def _page_shape(geoms: list, view: View):
+    """Board geometries (mm) as one shapely geometry in page px, prepared for many intersection tests."""
+    a, b, c, d, e, f = view.matrix
+    shape = affine_transform(shapely.union_all([g for g in geoms if not g.is_empty]), [a, c, b, d, e, f])
+    shapely.prepare(shape)
+    return shape
+
+
+def _cell_numbers(layout: Layout, view: View) -> list:
+    """Each cell's index (as in the estimate, the findings and report.json) in its patch, a third of the way
+    from the centre (where the pair runs) to the patch's left edge, where it fits."""
+    size = 12.0
+    fits = layout.cells and min(min(c.size) for c in layout.cells) * view.scale >= 2.8 * size
+    if not fits:
+        return []
+    return [Text(x, y + CAP / 2 * size, str(c.index), size, COLOURS["cell"], bold=True, anchor="middle",
+                 role="cell-number")
+            for c in layout.cells for x, y in [view.px(*CellFrame(c).board(0.0, c.size[1] / 3))]]
+
+
+LABEL_RADII = (15.0, 28.0, 44.0, 62.0, 84.0, 110.0, 140.0)
+LABEL_TURNS = 16
+COVERED_PX = 90.0
+"""A finding whose rule id is already written this close (page px) to its ring gets no second label."""
+
+
+RING_PX = 23.0
+
+
+def _finding_marks(findings: list, view: View, avoid, taken: list) -> tuple[list, list, int]:
+    """A ring at each finding and its rule id where it overlaps no other label, no other finding's ring, no trace
+    and no other copper: beside the ring, else farther out with a leader line.  Returns rings, labels and how many
+    were left out."""
+    centres = [view.px(*f.at) for f in findings]
+    rings: list = []
+    labels: list = []
+    written: list[tuple[str, float, float]] = []
+    boxes = list(taken)
+    frame = (view.left + 2, view.top + 2, view.right - 2, view.bottom - 2)
+    left_out = 0
+    for f, (x, y) in zip(findings, centres):
+        colour = COLOURS["error"] if f.severity == "error" else COLOURS["warning"]
+        rings.append(Markers(((x, y),), "ring", RING_PX, None, colour, 3.0, "finding"))
+        if any(rule == f.rule and math.hypot(x - wx, y - wy) <= COVERED_PX for rule, wx, wy in written):
+            continue
+        others = [c for c in centres if math.hypot(c[0] - x, c[1] - y) > 1.0]
+        placed = _free_label(f.rule, x, y, colour, frame, boxes, avoid, others)
+        if placed is None:
+            left_out += 1
+            continue
+        text, radius = placed
+        boxes.append(text.box())
+        written.append((f.rule, x, y))
+        if radius > LABEL_RADII[0]:
+            bx0, by0, bx1, by1 = text.box()
+            tx, ty = min(max(x, bx0), bx1), min(max(y, by0), by1)
+            length = math.hypot(tx - x, ty - y) or 1.0
+            start = (x + 11.5 * (tx - x) / length, y + 11.5 * (ty - y) / length)
+            labels.append(Polyline(np.array([start, (tx, ty)]), colour, 1.2, role="leader"))
+        labels.append(text)
+    return rings, labels, left_out
+
+
+def _free_label(rule: str, x: float, y: float, colour: str, frame: tuple, boxes: list, avoid, rings: list):
+    """The first label position around (x, y), nearest first, whose box is inside ``frame`` and clear of
+    ``boxes``, ``avoid`` and the finding rings centred at ``rings``; (Text, radius) or None."""
+    reach = RING_PX / 2 + 1.5
+    for radius in LABEL_RADII:
+        for k in range(LABEL_TURNS):
+            angle = math.pi / 4 + 2 * math.pi * k / LABEL_TURNS
+            cx, cy = x + radius * math.cos(angle), y - radius * math.sin(angle)
+            anchor = "start" if math.cos(angle) > 0.2 else "end" if math.cos(angle) < -0.2 else "middle"
+            text = Text(cx, cy + (ASCENT - DESCENT) / 2 * LABEL_SIZE, rule, LABEL_SIZE, colour, bold=True,
+                        anchor=anchor, halo=True, role="finding-label")
+            x0, y0, x1, y1 = text.box()
+            if x0 < frame[0] or y0 < frame[1] or x1 > frame[2] or y1 > frame[3]:
+                continue
+            if any(x0 < b[2] and b[0] < x1 and y0 < b[3] and b[1] < y1 for b in boxes):
+                continue
+            if any(math.hypot(max(x0 - rx, 0.0, rx - x1), max(y0 - ry, 0.0, ry - y1)) < reach for rx, ry in rings):
+                continue
+            if avoid is not None and not avoid.is_empty and avoid.intersects(box(x0, y0, x1, y1)):
+                continue
+            return text, radius
+    return None
 
 
 def _crowded(points: tuple, size: float) -> bool:
@@ -386,17 +534,19 @@ def _dimensions(layout: Layout, view: View) -> list:
     ou0, ov0, ou1, ov1 = frame.local_bounds(cell.outer)
     off = 0.35 * (pv1 - pv0)
     dim = COLOURS["dim"]
+    units = layout.spec.units
     items = _arrow(view.px(*frame.board(pu0, ov0 - off)), view.px(*frame.board(pu1, ov0 - off)), dim)
     items.append(_dim_text(view, frame.board((pu0 + pu1) / 2, ov0 - off), frame.direction(0.0, -1.0),
-                           f"{pu1 - pu0:.3f} mm"))
+                           format_length(pu1 - pu0, units)))
     items += _arrow(view.px(*frame.board(ou0 - off, pv0)), view.px(*frame.board(ou0 - off, pv1)), dim)
     items.append(_dim_text(view, frame.board(ou0 - off, pv1 - 0.25 * (pv1 - pv0)), frame.direction(-1.0, 0.0),
-                           f"{pv1 - pv0:.3f} mm", extend=frame.direction(0.0, 1.0)))
+                           format_length(pv1 - pv0, units), extend=frame.direction(0.0, 1.0)))
     slot_at = view.px(*frame.board(pu0 + 0.2 * (pu1 - pu0), (pv1 + ov1) / 2))
     text_at = frame.board(pu0 + 0.2 * (pu1 - pu0), ov1 + off)
     tx, ty = view.px(*text_at)
     items += _arrow((tx, ty), slot_at, dim, start_head=False)
-    items.append(_dim_text(view, text_at, frame.direction(0.0, 1.0), f"slot {ov1 - pv1:.3f} mm", gap=3.0))
+    items.append(_dim_text(view, text_at, frame.direction(0.0, 1.0), f"slot {format_length(ov1 - pv1, units)}",
+                           gap=3.0))
     return items
 
 
@@ -437,7 +587,8 @@ def _axes(frame: tuple[float, float, float, float], xticks: list, yticks: list, 
     return items
 
 
-def _legend_entries(layout: Layout, findings: Sequence) -> list[tuple[str, tuple]]:
+def _legend_entries(layout: Layout, findings: Sequence, tracks: Sequence = (),
+                    vias: Sequence = ()) -> list[tuple[str, tuple]]:
     """Legend entries for what this drawing actually shows: (label, swatch)."""
     edge = {"edge": COLOURS["edge"], "edge_px": 0.8}
     entries = [(f"plane copper ({layout.spec.plane_net})", ("rect", COLOURS["plane"], {})),
@@ -451,6 +602,10 @@ def _legend_entries(layout: Layout, findings: Sequence) -> list[tuple[str, tuple
         hatch = COLOURS["hatch"] if trace.polarity == "N" else None
         entries.append((f"{trace.polarity} trace {trace.net}",
                         ("rect", COLOURS[trace.polarity], {"alpha": TRACE_ALPHA, "hatch": hatch})))
+    if tracks:
+        entries.append(("other track", ("rect", COLOURS["track"], {"alpha": TRACE_ALPHA})))
+    if vias:
+        entries.append(("via / pad", ("marker", "dot", 11.0, COLOURS["via"], COLOURS["page"], 0.8)))
     entries.append(("full slot crossing", ("marker", "dot", 7.0, COLOURS["full"], COLOURS["page"], 0.8)))
     if any(c.kind != "full" for c in layout.crossings):
         entries.append(("along / ends in slot", ("marker", "x", 13.0, COLOURS["other"], COLOURS["page"], 1.0)))
@@ -480,7 +635,7 @@ def _legend_items(entries: list, x: float, y: float, row: float, columns: int, s
     return items
 
 
-def _summary(layout: Layout, findings: Sequence) -> list[str]:
+def _summary(layout: Layout, findings: Sequence, unlabelled: int = 0) -> list[str]:
     """Short text block for the right column: crossings per trace and layer, finding counts."""
     spec = layout.spec
     lines = ["Slot crossings per trace"]
@@ -493,7 +648,11 @@ def _summary(layout: Layout, findings: Sequence) -> list[str]:
     errors = sum(f.severity == "error" for f in findings)
     warnings = sum(f.severity == "warning" for f in findings)
     lines.append(f"Findings: {errors} error(s), {warnings} warning(s)")
-    lines.append(f"Fab minimums: slot {spec.min_slot:.3f} mm, copper {spec.min_copper:.3f} mm")
+    if unlabelled:
+        lines.append(f"  {unlabelled} rule id(s) left out for room;")
+        lines.append("  see `ebglayout check` for all")
+    lines.append(f"Fab minimums: slot {format_length(spec.min_slot, spec.units)}, "
+                 f"copper {format_length(spec.min_copper, spec.units)}")
     if spec.plane_outline is None:
         lines.append("Plane outline not given: copper is")
         lines.append("shown only around the cut.")
@@ -509,7 +668,8 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
     has_band = band.get("low_hz") is not None and band.get("high_hz") is not None
     target = notch.get("target_hz")
     points: dict[str, list[tuple[int, float]]] = {"mode": [], "lc": [], "notch": []}
-    for i, cell in enumerate(cells, start=1):
+    numbers = [cell.get("index", i) for i, cell in enumerate(cells)]
+    for i, cell in zip(numbers, cells):
         values = [("mode", m.get("f_hz")) for m in cell.get("modes", [])]
         values += [("lc", cell.get("lc_f_hz")), ("notch", cell.get("notch_hz"))]
         for kind, hz in values:
@@ -522,12 +682,13 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
     pad = 0.06 * (hi - lo) if hi > lo else 0.5
     lo, hi = lo - pad, hi + pad
     count = max(len(cells), 1)
+    first = min(numbers, default=0)
 
     def px(i: float, g: float) -> tuple[float, float]:
-        return (left + (i - 0.5) / count * (right - left), bottom - (g - lo) / (hi - lo) * (bottom - top))
+        return (left + (i - first + 0.5) / count * (right - left), bottom - (g - lo) / (hi - lo) * (bottom - top))
 
-    xticks = [(float(i), str(i)) for i in range(1, count + 1)] if count <= 12 else \
-        [(v, s) for v, s in _ticks(1, count, 6) if float(v).is_integer()]
+    xticks = [(float(i), str(i)) for i in numbers] if count <= 12 else \
+        [(v, s) for v, s in _ticks(first, first + count - 1, 6) if float(v).is_integer()]
     yticks = _ticks(lo, hi, 5)
     items: list = []
     for i, _ in xticks:

@@ -1,7 +1,8 @@
 """DXF export with ezdxf: closed polylines per ring and role, real dimensions, and a notes block.
 
 Drawing units are mm ($INSUNITS = 4, $MEASUREMENT = 1, metric); coordinates are
-the board's own, so the drawing overlays the board 1:1.  Each ring (exterior and
+the board's own, so the drawing overlays the board 1:1.  Dimension texts (DIMLFAC,
+DIMPOST) and the notes are written in the spec's own units.  Each ring (exterior and
 holes) is one closed LWPOLYLINE, so a CAD user gets the filled area with the
 even-odd rule.  Timestamps and GUIDs are frozen for byte-stable output.
 """
@@ -16,6 +17,7 @@ from ezdxf.enums import MTextEntityAlignment, TextEntityAlignment
 
 from ..layout import ROLES, Layout
 from ..spec import FilterSpec
+from ..units import LENGTH_UNITS_MM, format_length, in_units
 from . import CAUTION, CellFrame, atomic_path
 
 DXF_VERSION = "R2010"
@@ -117,8 +119,9 @@ def _add_dimensions(doc, layout: Layout, text_height: float) -> None:
     h = text_height
     doc.dimstyles.add(DIMSTYLE, dxfattribs={
         "dimtxt": h, "dimasz": 0.6 * h, "dimexo": 0.3 * h, "dimexe": 0.5 * h, "dimgap": 0.3 * h,
-        "dimdec": 4, "dimlunit": 2, "dimdsep": ord("."), "dimtad": 1, "dimzin": 8, "dimlfac": 1.0, "dimtih": 0,
+        "dimdec": 4, "dimlunit": 2, "dimdsep": ord("."), "dimtad": 1, "dimzin": 8, "dimtih": 0,
         "dimtoh": 0, "dimtix": 0,
+        "dimlfac": 1 / LENGTH_UNITS_MM[layout.spec.units], "dimpost": f"<> {layout.spec.units}",
     })
     msp = doc.modelspace()
     attribs = {"layer": DIMENSION_LAYER[0]}
@@ -162,17 +165,18 @@ def _add_findings(msp, findings: Sequence, text_height: float) -> None:
             (f.at[0] + 1.2 * text_height, f.at[1] + 1.2 * text_height), align=TextEntityAlignment.BOTTOM_LEFT)
 
 
-def _mm(value: float) -> str:
-    return f"{value:.3f} mm"
-
-
 def notes_lines(layout: Layout, findings: Sequence = ()) -> list[str]:
     """The notes block as plain lines: spec values, crossings per trace, fab cautions and the compliance caution."""
     spec = layout.spec
-    sizes = ", ".join(f"{a:.3f} x {b:.3f}" for a, b in spec.patches)
+    units = spec.units
+
+    def _mm(value: float) -> str:
+        return format_length(value, units, digits=6)
+
+    sizes = ", ".join(f"{in_units(a, units):.6g} x {in_units(b, units):.6g}" for a, b in spec.patches)
     lines = [
-        f"EBG CUT {spec.name} - board coordinates, mm",
-        f"Style {spec.style}, {spec.count} cell(s); patch along x across (mm): {sizes}",
+        f"EBG CUT {spec.name} - drawing units and board coordinates mm; lengths in these notes in {units}",
+        f"Style {spec.style}, {spec.count} cell(s); patch along x across ({units}): {sizes}",
         f"Slot {_mm(spec.slot)}; web {_mm(spec.web)}" + ("" if spec.style != "folded" else f"; {spec.passes} passes"),
     ]
     if spec.style == "bridged":
@@ -204,7 +208,8 @@ def notes_lines(layout: Layout, findings: Sequence = ()) -> list[str]:
                  + "or a refill removes webs/bridges and thin patch copper.")
     if findings:
         for f in sorted(findings, key=lambda f: (f.severity != "error", f.rule, f.at)):
-            lines.append(f"{f.severity.upper()} {f.rule} at ({f.at[0]:.3f}, {f.at[1]:.3f}): {f.message}")
+            x, y = (in_units(c, units) for c in f.at)
+            lines.append(f"{f.severity.upper()} {f.rule} at ({x:.6g}, {y:.6g}) {units}: {f.message}")
     lines.append("CAUTION: " + CAUTION)
     return lines
 

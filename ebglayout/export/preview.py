@@ -11,7 +11,8 @@ from .drawing import SIZE_PX, build_drawing, drawing_title
 from .png import PNG_COMPRESS_LEVEL, png_image
 from .svg import svg_text
 
-__all__ = ["SIZE_PX", "build_drawing", "png_image", "svg_text", "write_preview"]
+__all__ = ["SIZE_PX", "build_drawing", "drawing_title", "png_image", "svg_text", "write_png", "write_preview",
+           "write_svg"]
 
 
 def write_preview(layout: Layout, svg_path: str | Path, png_path: str | Path, findings: Sequence = (),
@@ -21,12 +22,20 @@ def write_preview(layout: Layout, svg_path: str | Path, png_path: str | Path, fi
     ``notch`` (optional): {"cells": [{"modes": [{"f_hz": ...}, ...], "lc_f_hz": ..., "notch_hz": ...}, ...],
     "band": {"low_hz": ..., "high_hz": ...}, "target_hz": ...} adds a per-cell notch plot.
     """
-    svg_path, png_path = Path(svg_path), Path(png_path)
     items = build_drawing(layout, findings, notch)
-    title = drawing_title(layout)
-    with atomic_path(svg_path) as tmp:
+    return write_svg(items, drawing_title(layout), svg_path), write_png(items, png_path)
+
+
+def write_svg(items: list, title: str, path: str | Path) -> Path:
+    """Write a drawing (``build_drawing``) as SVG, atomically."""
+    with atomic_path(path) as tmp:
         tmp.write_text(svg_text(items, title), encoding="utf-8")
+    return Path(path)
+
+
+def write_png(items: list, path: str | Path) -> Path:
+    """Write a drawing (``build_drawing``) as PNG, atomically."""
     image = png_image(items)
-    with atomic_path(png_path) as tmp:
+    with atomic_path(path) as tmp:
         image.save(tmp, format="PNG", compress_level=PNG_COMPRESS_LEVEL)
-    return svg_path, png_path
+    return Path(path)

@@ -1,8 +1,9 @@
 """|Scc21| and |Sdd21| against frequency from a result file's content (``response.response_json``), drawn with the
 preview's primitives (``drawing.py``) and written by the same two back-ends: SVG by hand, PNG with Pillow.
 
-The page shows both curves in dB against GHz, the threshold line, the Scc21 stopband shaded, the target marked,
-the notch ringed, and where the data came from in the title.  Byte-stable, like the preview.
+The page shows both curves in dB against GHz, the threshold line, the Scc21 stopband shaded (and, when the data
+carry a ``tolerance`` entry from ``response.corners_json``, the band every corner rejects), the target marked, the
+notch ringed, and where the data came from in the title.  Byte-stable, like the preview.
 """
 from __future__ import annotations
 
@@ -12,10 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from ..response import DB_FLOOR
-from . import atomic_path
 from .drawing import CAP, COLOURS, Markers, Polyline, Text, _axes, _legend_items, _rect, _ticks
-from .png import PNG_COMPRESS_LEVEL, png_image
-from .svg import svg_text
+from .preview import write_png, write_svg
 
 PLOT_BOX = (110.0, 120.0, 1060.0, 790.0)
 """left, top, right, bottom (px) of the plot; the right column holds the legend and the summary."""
@@ -23,6 +22,8 @@ LEGEND_AT = (1100.0, 140.0)
 SUMMARY_AT = (1100.0, 330.0)
 FLOOR_DB = -80.0
 """Lowest dB the plot shows; deeper points are drawn on the bottom edge (the summary gives the true depth)."""
+GUARANTEED_COLOUR = "#8cc68c"
+"""The band every tolerance corner rejects: a darker, striped shade of the stopband's green."""
 CURVE_STYLE = {"scc21": ("|Scc21| (common mode)", COLOURS["notch"], 2.0),
                "sdd21": ("|Sdd21| (differential)", COLOURS["warning"], 2.0)}
 
@@ -81,6 +82,13 @@ def build_response_drawing(data: dict, name: str = "") -> list:
         x0, x1 = (float(v) for v in frame.x(np.asarray(cc["stopband_hz"]) / 1e9))
         items.append(_rect(x0, top, x1, bottom, COLOURS["band"], role="stopband"))
         entries.append((f"Scc21 stopband ({cc['threshold_db']:g} dB)", ("rect", COLOURS["band"], {})))
+    tolerance = data.get("tolerance") or {}
+    for low, high in tolerance.get("guaranteed_stopband_hz", []):
+        x0, x1 = (float(v) for v in frame.x(np.array([low, high]) / 1e9))
+        items.append(_rect(x0, top, x1, bottom, GUARANTEED_COLOUR, role="guaranteed", hatch=COLOURS["band"]))
+    if tolerance.get("guaranteed_stopband_hz"):
+        count = len(tolerance.get("corners", []))
+        entries.append((f"rejected at all {count} corners", ("rect", GUARANTEED_COLOUR, {"hatch": COLOURS["band"]})))
     xticks = _ticks(frame.ghz0, frame.ghz1, (right - left) / 110)
     yticks = _ticks(frame.db0, frame.db1, (bottom - top) / 60)
     for value, _ in xticks:
@@ -121,14 +129,8 @@ def build_response_drawing(data: dict, name: str = "") -> list:
 
 def write_response_plot(data: dict, svg_path: str | Path, png_path: str | Path, name: str = "") -> tuple[Path, Path]:
     """Draw a result file's content and write it as SVG and PNG (each atomically); return both paths."""
-    svg_path, png_path = Path(svg_path), Path(png_path)
     items = build_response_drawing(data, name)
-    with atomic_path(svg_path) as tmp:
-        tmp.write_text(svg_text(items, _title(data, name)), encoding="utf-8")
-    image = png_image(items)
-    with atomic_path(png_path) as tmp:
-        image.save(tmp, format="PNG", compress_level=PNG_COMPRESS_LEVEL)
-    return svg_path, png_path
+    return write_svg(items, _title(data, name), svg_path), write_png(items, png_path)
 
 
 def _title(data: dict, name: str) -> str:
@@ -161,6 +163,13 @@ def _summary(data: dict) -> list[str]:
     target = data.get("target_hz")
     if target is not None and data.get("scc21_at_target_db") is not None:
         lines.append(f"  at target {target / 1e9:.4g} GHz: {_db_text(data['scc21_at_target_db'], 1)}")
+    tolerance = data.get("tolerance") or {}
+    if tolerance.get("corners"):
+        bands = tolerance.get("guaranteed_stopband_hz") or []
+        lines.append(f"Over {len(tolerance['corners'])} corners")
+        lines.append(f"  shallowest notch {_db_text(tolerance['worst_depth_db'], 1)}")
+        lines += [f"  all reject {low / 1e9:.4g}-{high / 1e9:.4g} GHz" for low, high in bands] or \
+            ["  no band rejected at every corner"]
     lines.append("Differential (Sdd21)")
     lines.append(f"  at the notch {_db_text(data['sdd21_at_notch_db'], 2)}")
     if target is not None and data.get("sdd21_at_target_db") is not None:

@@ -234,7 +234,22 @@ class Pad:
 
 
 @dataclass(frozen=True)
+class FootprintPolygon:
+    """A filled copper polygon drawn in a footprint (``fp_poly``), in board coordinates, stroke included."""
+
+    layer: str
+    polygon: Polygon
+
+
+@dataclass(frozen=True)
 class Footprint:
+    """A placed footprint; ``layer`` is F.Cu, or B.Cu when it was flipped to the back.
+
+    ``polygons`` are its filled ``fp_poly`` items on copper layers, moved from the
+    footprint's own frame to the board (the file keeps them local; a flip is already
+    in those local coordinates, so position and rotation are all it takes).
+    """
+
     reference: str
     value: str
     lib_id: str
@@ -243,6 +258,7 @@ class Footprint:
     layer: str
     pads: tuple[Pad, ...]
     span: tuple[int, int]
+    polygons: tuple[FootprintPolygon, ...] = ()
 
     def to_board(self, x: float, y: float) -> tuple[float, float]:
         """Footprint-local point to board coordinates: (X + x cos t + y sin t, Y - x sin t + y cos t), y down."""
@@ -1131,7 +1147,33 @@ class _Reader:
         fp = Footprint(reference, value, str(node[1]) if len(node) > 1 else "", (float(at[1]), float(at[2])), rot,
                        str(_atom(node, "layer", default="F.Cu")), (), (start, end))
         pads = tuple(self._pad(p, fp, start) for p in _children(node, "pad"))
-        return Footprint(fp.reference, fp.value, fp.lib_id, fp.at, rot, fp.layer, pads, (start, end))
+        polygons = tuple(p for item in _children(node, "fp_poly") for p in self._copper_polygon(item, fp, start))
+        return Footprint(fp.reference, fp.value, fp.lib_id, fp.at, rot, fp.layer, pads, (start, end), polygons)
+
+    def _copper_polygon(self, node: list, fp: Footprint, start: int) -> list[FootprintPolygon]:
+        """A filled ``fp_poly`` on copper (KiCad 6-9 spellings) in board coordinates; [] for anything else.
+
+        A polygon that cannot be read is left out with a warning: any footprint may hold one, and only
+        ebglayout's own footprints are measured from these.
+        """
+        layer = _child(node, "layer")
+        layers = expand_layers(str(layer[1]), self.copper, self.layer_names) if layer is not None and len(layer) > 1 \
+            else []
+        if not layers or _atom(node, "fill") not in ("solid", "yes"):
+            return []
+        try:
+            ring = _ring(_child(node, "pts"))
+        except (TypeError, ValueError, IndexError):
+            ring = ()
+        if len(ring) < 3:
+            self.warnings.append(f"footprint {fp.reference}: an fp_poly on {layers[0]} without 3 readable points "
+                                 f"(byte {start}) was left out")
+            return []
+        polygon = shapely.make_valid(Polygon([fp.to_board(x, y) for x, y in ring.tolist()]))
+        width = _num(_child(node, "stroke"), "width") or _num(node, "width")
+        if width:
+            polygon = polygon.buffer(width / 2)
+        return [FootprintPolygon(name, polygon) for name in layers]
 
     def _pad(self, node: list, fp: Footprint, start: int) -> Pad:
         if len(node) < 4:

@@ -56,11 +56,10 @@ def package_files() -> list[tuple[str, Path]]:
 def build_package(out_dir: str | Path, force: bool = False) -> tuple[Path, str]:
     """Write ebglayout-<version>-pcm.zip into ``out_dir``; return its path and SHA-256."""
     name = f"ebglayout-{__version__}-pcm.zip"
-    staged = StagedOutputs(out_dir, force=force)
-    staged.require_free([name, "repository-entry.json"])
-    with staged:
-        zip_path = staged.path(name)
-        with zipfile.ZipFile(zip_path, "w", compression=zipfile.ZIP_DEFLATED) as archive:
+    with StagedOutputs(out_dir, force=force, inputs=[src for _, src in package_files()]) as staged:
+        staged.require_free([name, "repository-entry.json"])
+        with staged.writing(name) as zip_path, \
+                zipfile.ZipFile(zip_path, "w", compression=zipfile.ZIP_DEFLATED) as archive:
             entries = [("metadata.json", json.dumps(metadata(), indent=2).encode() + b"\n")]
             entries += [(arc, src.read_bytes()) for arc, src in package_files()]
             for arc, data in entries:

@@ -13,6 +13,7 @@ import json
 import math
 import re
 import tomllib
+from contextlib import nullcontext
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -25,15 +26,17 @@ from shapely.ops import linemerge
 from ..checks import CheckReport, run_checks
 from ..checks.rules import CheckContext, RuleResult
 from ..errors import BoardError, SpecError
-from ..layout import Layout, PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
+from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
 from ..path import piece_points
-from ..pipeline import FilterResult, can_fork, write_filter
+from ..pipeline import FilterResult, can_fork, output_names, write_filter
 from ..spec import Arc, spec_from_dict
+from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
 from .pairs import BoardPair, find_pairs, obstacles, pair_nets, pair_spec_dict, plane_layers_for
+from .placed import board_cuts, placed_results
 from .rules import merge_rules, rules_text
 from .sexpr import unescape
 
@@ -141,9 +144,15 @@ def net_lines(board: Board, net: str, layer: str) -> list[LineString]:
     return list(getattr(merged, "geoms", [merged]))
 
 
+def cut_extent(layout: Layout):
+    """Where the filter is: its cuts, or its cells where a board holds no cut of it any more."""
+    extent = shapely.union_all([c.outline for c in layout.cuts])
+    return extent if not extent.is_empty else shapely.union_all([c.outer for c in layout.cells])
+
+
 def board_traces(board: Board, layout: Layout, pair: BoardPair) -> tuple:
     """The pair's real copper near the cut, as traces the crossing code can measure."""
-    area = shapely.union_all([c.outline for c in layout.cuts]).buffer(1.0)
+    area = cut_extent(layout).buffer(1.0)
     traces = []
     for polarity, net in (("P", pair.net_p), ("N", pair.net_n)):
         candidates = net_lines(board, net, pair.layer)
@@ -167,7 +176,7 @@ def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
     ``references`` is ``reference_planes(board)``, passed in when many filters share one board.
     """
     spec = layout.spec
-    bounds = shapely.union_all([c.outline for c in layout.cuts]).bounds
+    bounds = cut_extent(layout).bounds
     tracks, vias = obstacles(board, bounds, spec.plane_layers, exclude_nets=spec.nets)
     found, _ = plane_layers_for(board, spec.pair_layer, spec.plane_net)
     outline = board.outline
@@ -287,12 +296,13 @@ def build_on_board(board: Board, request: Request, pair: BoardPair, reference: s
                         "tracks, so draw the folded route on the board first (or use `build` to get the route)")
     layout = with_copper(layout, traces=board_traces(board, layout, pair))
     estimate = estimate_layout(layout)
-    checks = run_checks(layout, board_context(board, layout, pair, references=references), estimate=estimate)
+    context = board_context(board, layout, pair, references=references)
+    checks = run_checks(layout, context, estimate=estimate)
     texts = texts if texts is not None else BoardTexts(board)
     item = board_footprint_text(layout, texts.version, reference=reference, plane_net=texts.plane_net(spec.plane_net),
                                 zone_priority=zone_priority_for(texts.text(), layout, spec.plane_net, board.name),
                                 design=design)
-    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate), design, item)
+    return PlacedFilter(reference, pair, FilterResult(layout, checks, estimate, context), design, item)
 
 
 def plan_placement(board: Board, requests: list[Request], existing_rules: str | None, progress=None) -> Placement:
@@ -330,7 +340,7 @@ def plan_placement(board: Board, requests: list[Request], existing_rules: str | 
         if board.stackup is None:
             spec = p.result.layout.spec
             notes.append(f"{p.pair.base}: no board stack-up; used the spec's stackup.er = {spec.er:g} and "
-                         f"stackup.h = {spec.h:g} mm")
+                         f"stackup.h = {format_length(spec.h, spec.units, digits=6)}")
     return Placement(placed, new_text, rules, risks, notes)
 
 
@@ -342,31 +352,35 @@ def _pairs_for(board: Board, requests: list[Request]) -> list[BoardPair]:
     return find_pairs(board, only=wanted) if wanted else []
 
 
+def board_files(board_path: str | Path) -> tuple[Path, Path]:
+    """The files a board job reads: the board and the rules file beside it (which need not exist)."""
+    return Path(board_path), Path(board_path).with_suffix(".kicad_dru")
+
+
 def place(board_path: str | Path, requests: list[Request], out_path: str | Path, artifacts: str | Path | None = None,
-          force: bool = False, progress=None) -> Placement:
-    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs."""
-    board_path, out_path = Path(board_path), Path(out_path)
+          force: bool = False, progress=None, inputs=()) -> Placement:
+    """`ebglayout place`: write a new board (and its .kicad_dru) with filters under the requested pairs.
+
+    Nothing is written over the board, its rules, the specs or any other of ``inputs`` (a plan file)."""
+    (board_path, source_rules), out_path = board_files(board_path), Path(out_path)
     if out_path.suffix != ".kicad_pcb":
         raise SpecError("--out", str(out_path), "must name a new .kicad_pcb file")
-    staged = StagedOutputs(out_path.parent if str(out_path.parent) else Path("."), force=force,
-                           protect=(board_path, board_path.with_suffix(".kicad_dru")))
+    inputs = (board_path, source_rules, *inputs, *(Path(r.source) for r in requests))
+    staged = StagedOutputs(out_path.parent, force=force, inputs=inputs)
+    art = StagedOutputs(artifacts, force=force, inputs=inputs, option="--artifacts") if artifacts else None
     rules_name = out_path.with_suffix(".kicad_dru").name
-    staged.require_free([out_path.name, rules_name])
-    board = read_board(board_path)
-    source_rules = board_path.with_suffix(".kicad_dru")
-    existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
-    placement = plan_placement(board, requests, existing, progress)
-    if artifacts is not None:
-        art = StagedOutputs(artifacts, force=force)
-        art.require_free([f"{p.result.name}/report.json" for p in placement.filters])
-    with staged:
-        with open(staged.path(out_path.name), "w", encoding="utf-8", newline="") as handle:
+    with staged, art if art else nullcontext():
+        staged.require_free([out_path.name, rules_name])
+        board = read_board(board_path)
+        existing = source_rules.read_text(encoding="utf-8") if source_rules.exists() else None
+        placement = plan_placement(board, requests, existing, progress)
+        if art:
+            art.require_free([n for p in placement.filters for n in output_names(p.result.name, p.result.name)])
+        with staged.writing(out_path.name) as path, open(path, "w", encoding="utf-8", newline="") as handle:
             handle.write(placement.board_text)
         staged.write_text(rules_name, placement.rules_text)
-        if artifacts is not None:
-            for p in placement.filters:
-                with StagedOutputs(Path(artifacts) / p.result.name, force=force) as folder:
-                    write_filter(p.result, folder)
+        for p in placement.filters if art else ():
+            write_filter(p.result, art, folder=p.result.name)
     return placement
 
 
@@ -388,28 +402,29 @@ def placed_designs(board: Board) -> list[tuple[object, dict]]:
     return found
 
 
-def _moved(layout: Layout, footprint) -> Layout:
-    """The design moved and turned to where the footprint sits now (KiCad: y down, rotation counter-clockwise on screen)."""
+def _cells_moved(layout: Layout, footprint) -> Layout:
+    """The design's cells moved, turned and (on B.Cu) mirrored to where the footprint sits now.
+
+    KiCad: y down, board = at + R(t) (local), and a flipped footprint's local frame is
+    the placed one mirrored in y (its file coordinates are already mirrored).  Only
+    the cells move; the cuts are read from the board (``placed.board_cuts``).
+    """
     ox, oy = footprint_origin(layout)
     (x, y), rot = footprint.at, footprint.rotation
-    if math.isclose(x, ox, abs_tol=1e-6) and math.isclose(y, oy, abs_tol=1e-6) and math.isclose(rot % 360, 0, abs_tol=1e-9):
+    flip = -1.0 if footprint.layer == "B.Cu" else 1.0
+    if math.isclose(x, ox, abs_tol=1e-6) and math.isclose(y, oy, abs_tol=1e-6) \
+            and math.isclose(rot % 360, 0, abs_tol=1e-9) and flip > 0:
         return layout
     t = math.radians(rot)
     c, s = math.cos(t), math.sin(t)
-    # board = at + R(local) with local = design - origin; R from KiCad's footprint transform (y down)
-    matrix = [c, s, -s, c, x - c * ox - s * oy, y + s * ox - c * oy]
-
-    def move(g):
-        return as_multipolygon(affine_transform(g, matrix))
-
-    cuts = tuple(PlaneCut(cut.layer, move(cut.slot), move(cut.patch), move(cut.bridge), move(cut.outline))
-                 for cut in layout.cuts)
+    xx, xy, yx, yy = c, s * flip, -s, c * flip
+    matrix = [xx, xy, yx, yy, x - xx * ox - xy * oy, y - yx * ox - yy * oy]
     cells = tuple(replace(cell, patch=affine_transform(cell.patch, matrix), outer=affine_transform(cell.outer, matrix),
                           bridges=tuple(affine_transform(b, matrix) for b in cell.bridges),
                           centre=tuple(np.round(affine_transform(shapely.Point(cell.centre), matrix).coords[0], 6)),
-                          rotation_deg=(cell.rotation_deg - rot) % 360)
+                          rotation_deg=(flip * cell.rotation_deg - rot) % 360)
                   for cell in layout.cells)
-    return replace(with_copper(layout, cuts=cuts), cells=cells)
+    return replace(layout, cells=cells)
 
 
 FILTERS_PER_PROCESS = 4
@@ -491,12 +506,14 @@ def _recheck_in_worker(indices: range) -> list[CheckReport | None]:
 
 
 def _recheck(job: _Recheck, index: int) -> CheckReport:
-    """One placed filter against the board: rebuilt from its stored design, moved to the footprint, measured."""
+    """One placed filter measured on the board's own cut, then compared with the design stored in its footprint."""
     from ..estimate.band import estimate_layout
 
     board, (footprint, design) = job.board, job.designs[index]
     spec = spec_from_dict(design, default_name=str(design.get("name", footprint.value)))
-    layout = _moved(build_layout(spec), footprint)
+    designed = build_layout(spec)
+    on_board = board_cuts(board, footprint, designed)
+    layout = with_copper(_cells_moved(designed, footprint), cuts=on_board.cuts)
     match = [bp for bp in job.pairs if {bp.net_p, bp.net_n} == set(spec.nets) and bp.layer == spec.pair_layer]
     if match:
         pair = max(match, key=lambda bp: bp.length)
@@ -506,12 +523,14 @@ def _recheck(job: _Recheck, index: int) -> CheckReport:
         else CheckContext(estimate=estimate)
     report = run_checks(layout, context, estimate=estimate)
     fill = RuleResult("kicad-fill", checked=1, unit="")
-    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), layout, spec.plane_net, job.rules):
+    present = replace(layout, cuts=tuple(c for c in layout.cuts if not c.outline.is_empty))  # placed-footprint: the rest
+    for risk in fill_risks(job.texts.text(footprints=spec.style == "bridged"), present, spec.plane_net, job.rules):
         fill.add("warning", risk, layout.cells[0].centre)
     if not match:
         fill.add("error", f"{footprint.reference}: pair {'/'.join(spec.nets)} is no longer routed on "
                  f"{spec.pair_layer}", layout.cells[0].centre)
-    return replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill,))
+    placed = placed_results(designed, layout, footprint, footprint_origin(designed), on_board)
+    return replace(report, name=f"{footprint.reference} {report.name}", results=report.results + (fill, *placed))
 
 
 def _design_nets(design: dict) -> list[str]:
