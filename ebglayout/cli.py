@@ -251,7 +251,7 @@ def _fullwave(args) -> int:
         data = fullwave_to_folder(layout, args.out, preset=args.preset, threads=args.threads,
                                   time_limit=args.time_limit * 60 if args.time_limit else None,
                                   keep_run=args.keep_run, threshold_db=args.threshold, force=args.force,
-                                  progress=bars.update if sys.stderr.isatty() else None)
+                                  progress=bars.update if sys.stderr.isatty() else None, inputs=(args.spec,))
     finally:
         bars.close()
     print(format_response(data))

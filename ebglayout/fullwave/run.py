@@ -212,30 +212,32 @@ def output_names(name: str) -> list[str]:
 
 def fullwave_to_folder(layout: Layout, out_dir: Path, *, preset: str = "default", threads: int = 2,
                        time_limit: float | None = None, keep_run: bool = False, threshold_db: float = -10.0,
-                       force: bool = False, progress=None) -> dict:
+                       force: bool = False, progress=None, inputs: tuple = ()) -> dict:
     """Simulate a layout and write <name>.s4p, <name>.fullwave.json and the plot (SVG, PNG), all or nothing.
 
-    Existing outputs are refused before the run starts (unless ``force``); ``keep_run`` keeps the engine's run
-    folder as <name>.fullwave-run beside the outputs.  Returns the result JSON content."""
+    Existing outputs (and outputs that are ``inputs``) are refused before the run starts; an error, the time
+    limit or Ctrl-C leaves nothing behind.  ``keep_run`` keeps the engine's run folder as <name>.fullwave-run
+    beside the outputs.  Returns the result JSON content."""
     from ..export.response_plot import write_response_plot
     from ..outputs import StagedOutputs
     from ..response import response_json, response_json_text
     from ..sparams import mixed_mode, touchstone_text
 
     name = layout.spec.name
-    staged = StagedOutputs(out_dir, force=force)
-    staged.require_free(output_names(name))
-    keep = Path(out_dir) / f"{name}.fullwave-run" if keep_run else None
-    if keep is not None and keep.exists() and not force:
-        raise EbgError(f"--keep-run {keep}: exists; pass --force to replace it")
-    result = simulate(layout, preset, threads, time_limit, progress, keep)
-    meta = result.meta
-    source = f"full-wave: {meta['engine']} FDTD, preset {meta['preset']}"
-    data = response_json(mixed_mode(result.network), source=source, target_hz=layout.spec.target_hz,
-                         threshold_db=threshold_db, extra={"fullwave": meta, "stackup": layout.stackup.to_json()})
-    comments = [f"source: {source}; {meta['symmetry']}", f"loss: {meta['loss']}",
-                "a simulation of the drawn geometry, not a compliance measurement"]
-    with staged:
+    find_engine()
+    with StagedOutputs(out_dir, force=force, inputs=inputs) as staged:
+        staged.require_free(output_names(name))
+        keep = Path(out_dir) / f"{name}.fullwave-run" if keep_run else None
+        if keep is not None and keep.exists() and not force:
+            raise EbgError(f"--keep-run {keep}: exists; pass --force to replace it")
+        result = simulate(layout, preset, threads, time_limit, progress, keep)
+        meta = result.meta
+        source = f"full-wave: {meta['engine']} FDTD, preset {meta['preset']}"
+        data = response_json(mixed_mode(result.network), source=source, target_hz=layout.spec.target_hz,
+                             threshold_db=threshold_db, extra={"fullwave": meta,
+                                                               "stackup": layout.stackup.to_json()})
+        comments = [f"source: {source}; {meta['symmetry']}", f"loss: {meta['loss']}",
+                    "a simulation of the drawn geometry, not a compliance measurement"]
         staged.path(f"{name}.s4p").write_bytes(touchstone_text(result.network, comments, Z_REF).encode("ascii"))
         staged.write_text(f"{name}.fullwave.json", response_json_text(data))
         write_response_plot(data, staged.path(f"{name}.fullwave.svg"), staged.path(f"{name}.fullwave.png"), name)
