@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import json
+import os
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -66,3 +68,33 @@ def test_live_run_writes_touchstone_json_and_plot(tmp_path, capsys, openems):
     assert data["source"].startswith("full-wave: openEMS")
     assert data["fullwave"]["preset"] == "fast" and data["fullwave"]["symmetry"].startswith("half domain")
     assert "compliance" in data["caution"]
+
+
+def test_ctrl_c_stops_the_engine_and_writes_nothing(tmp_path, openems):
+    """SIGINT during an engine run: exit 130 with one line, no output files, the engine process gone."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    out = tmp_path / "out"
+    keep = out / "hx2_l0_tx_straight.fullwave-run"
+    proc = subprocess.Popen([sys.executable, "-m", "ebglayout", "fullwave", str(_one_cell_spec(tmp_path)), "--out",
+                             str(out), "--preset", "fine", "--keep-run"], stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and not any(keep.glob("even-near/port_ut*")):
+        time.sleep(0.5)
+    engine_pids = [int(p) for p in os.listdir("/proc") if p.isdigit() and _cwd(p) == str(keep / "even-near")]
+    proc.send_signal(signal.SIGINT)
+    err = proc.communicate(timeout=60)[1].strip()
+    assert proc.returncode == 130 and err.splitlines() == ["ebglayout: interrupted"]
+    assert not [p for p in out.glob("hx2_l0_tx_straight.*") if p.is_file()]
+    assert engine_pids and not any(Path(f"/proc/{pid}").exists() for pid in engine_pids)
+
+
+def _cwd(pid: str) -> str:
+    try:
+        return os.readlink(f"/proc/{pid}/cwd")
+    except OSError:
+        return ""
