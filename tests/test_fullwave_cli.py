@@ -83,9 +83,10 @@ def test_ctrl_c_stops_the_engine_and_writes_nothing(tmp_path, openems):
     proc = subprocess.Popen([sys.executable, "-m", "ebglayout", "fullwave", str(_one_cell_spec(tmp_path)), "--out",
                              str(out), "--preset", "fine", "--keep-run"], stderr=subprocess.PIPE, text=True)
     deadline = time.monotonic() + 120
-    while time.monotonic() < deadline and not any(keep.glob("even-near/port_ut*")):
-        time.sleep(0.5)
-    engine_pids = [int(p) for p in os.listdir("/proc") if p.isdigit() and _cwd(p) == str(keep / "even-near")]
+    engine_pids: list[int] = []
+    while time.monotonic() < deadline and not engine_pids:
+        time.sleep(0.2)
+        engine_pids = [int(p) for p in os.listdir("/proc") if p.isdigit() and _cwd(p) == str(keep / "even-near")]
     proc.send_signal(signal.SIGINT)
     err = proc.communicate(timeout=60)[1].strip()
     assert proc.returncode == 130 and err.splitlines() == ["ebglayout: interrupted"]

@@ -162,8 +162,7 @@ def build_model(layout: Layout, preset: str | Preset = "default", f_max_hz: floa
     angle, origin = _frame(layout)
 
     def local(geom):
-        moved = affinity.translate(geom, -origin[0], -origin[1])
-        return affinity.rotate(moved, -angle, origin=(0, 0), use_radians=False)
+        return _to_local(layout, geom)
 
     cut = layout.cuts[0]
     outline = local(cut.outline)

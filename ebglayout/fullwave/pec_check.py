@@ -121,6 +121,8 @@ def check_pec_dump(model: Model, path: Path) -> dict:
             raise DrawnCheckFailed(f"fullwave check: the engine put copper inside a slot of {sheet.name} near "
                                    f"({bad[0]:.4f}, {bad[1]:.4f}) mm (model frame); nothing run")
         for part in getattr(gap, "geoms", [gap]):
+            if part.is_empty:
+                continue
             if len(_edge_midpoints(model, part.buffer(-tol))) == 0:
                 at = part.representative_point()
                 raise DrawnCheckFailed(f"fullwave check: the slot of {sheet.name} near ({at.x:.4f}, {at.y:.4f}) mm "
@@ -146,6 +148,8 @@ def _check_edges_on_lines(name: str, points: np.ndarray, segs: np.ndarray, gap, 
     lying exactly on it: the copper ends where the polygon says, not on a neighbouring mesh line."""
     a, b = points[segs[:, 0], :2], points[segs[:, 1], :2]
     for part in getattr(gap, "geoms", [gap]):
+        if part.is_empty:
+            continue
         for ring in (part.exterior, *part.interiors):
             xy = np.asarray(ring.coords)
             for (ax, ay), (bx, by) in zip(xy[:-1], xy[1:]):

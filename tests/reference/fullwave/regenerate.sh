@@ -6,4 +6,3 @@ cd "$(dirname "$0")/../../.."
 here=tests/reference/fullwave
 ebglayout fullwave "$here/hx2_l0_straight3_lossless.toml" --out "$here" --preset default --threads 2 --force
 ebglayout fullwave samples/hx2_l2_tx_bridged.toml --out "$here" --preset default --threads 2 --force
-ebglayout fullwave samples/hx2_l3_rx_stripline.toml --out "$here" --preset default --threads 2 --force
