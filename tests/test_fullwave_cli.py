@@ -99,3 +99,13 @@ def _cwd(pid: str) -> str:
         return os.readlink(f"/proc/{pid}/cwd")
     except OSError:
         return ""
+
+
+def test_time_limit_stops_the_run_and_writes_nothing(tmp_path, capsys, openems):
+    """--time-limit reached: one line naming the option, exit 2, no outputs."""
+    out = tmp_path / "out"
+    code = main(["fullwave", str(_one_cell_spec(tmp_path)), "--out", str(out), "--preset", "fine",
+                 "--time-limit", "0.1"])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "--time-limit" in err and len(err.splitlines()) == 1
+    assert not out.exists() or not list(out.iterdir())
