@@ -145,7 +145,7 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
              symmetry: str = "auto", with_cut: bool = True, model: Model | None = None) -> FullwaveResult:
     """Run the full-wave check of a layout; return the 4-port (ports 1 P near, 2 N near, 3 P far, 4 N far) at
     Z_REF with metadata.  ``time_limit`` is in seconds for all runs together; ``keep`` keeps the run folder."""
-    import skrf
+    from ..sparams import mixed_mode
 
     if preset not in PRESETS:
         raise EbgError(f"fullwave --preset {preset!r}: allowed are {', '.join(PRESETS)}")
@@ -167,15 +167,12 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
             report = (lambda state, name=drive.name: progress(name, state)) if progress else None
             runs.append((drive, run_engine(drive.model, drive.excite, workdir / drive.name, threads, deadline,
                                            report)))
-        freq = frequency_grid(model)
-        s = s_matrix([port_waves(model, d, sig, freq) for d, sig in runs], model.symmetric_along)
-        comm = _scc21_db(s)
-        freq = refine_grid(freq, comm)
-        s = s_matrix([port_waves(model, d, sig, freq) for d, sig in runs], model.symmetric_along)
+        coarse = _network(frequency_grid(model), runs, model, layout.spec.name)
+        freq = refine_grid(coarse.f, 20 * np.log10(np.maximum(np.abs(mixed_mode(coarse).scc21), 1e-15)))
+        network = _network(freq, runs, model, layout.spec.name)
     finally:
         if not keep:
             shutil.rmtree(workdir, ignore_errors=True)
-    network = skrf.Network(frequency=skrf.Frequency.from_f(freq, unit="Hz"), s=s, z0=Z_REF, name=layout.spec.name)
     meta = {
         "engine": f"openEMS {engine_version()}",
         "preset": model.preset.name,
@@ -187,7 +184,7 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
         "end_energy_db": [round(sig.end_energy_db, 1) for _, sig in runs],
         "record_cut_at_energy_growth": [sig.cut_at_growth for _, sig in runs],
         "wall_s": round(time.monotonic() - started, 1),
-        "port_resistor_ohm": round(z_port, 2),
+        "port_resistor_ohm": round(model.ports[0].feeds[0].resistance / len(model.ports[0].feeds), 2),
         "reference_ohm": Z_REF,
         "loss": f"dielectric conductivity fitted to tan d at {model.f_kappa_hz / 1e9:.2f} GHz; copper lossless",
         "f_max_hz": model.f_max_hz,
@@ -207,46 +204,9 @@ def _plan_name(drives: list[Drive]) -> str:
     return "full domain, common and differential drives"
 
 
-def _scc21_db(s: np.ndarray) -> np.ndarray:
-    """|Scc21| in dB from single-ended S in the project's port order (common wave: the two traces' sum / 2)."""
-    scc21 = 0.5 * (s[:, 2, 0] + s[:, 2, 1] + s[:, 3, 0] + s[:, 3, 1])
-    return 20 * np.log10(np.maximum(np.abs(scc21), 1e-15))
+def _network(freq: np.ndarray, runs: list, model: Model, name: str):
+    """The 4-port at Z_REF on a frequency grid, from every run's port signals."""
+    import skrf
 
-
-def output_names(name: str) -> list[str]:
-    """Files of one full-wave check: Touchstone, result JSON, plot."""
-    return [f"{name}.s4p", f"{name}.fullwave.json", f"{name}.fullwave.svg", f"{name}.fullwave.png"]
-
-
-def fullwave_to_folder(layout: Layout, out_dir: Path, *, preset: str = "default", threads: int = 2,
-                       time_limit: float | None = None, keep_run: bool = False, threshold_db: float = -10.0,
-                       force: bool = False, progress=None, inputs: tuple = ()) -> dict:
-    """Simulate a layout and write <name>.s4p, <name>.fullwave.json and the plot (SVG, PNG), all or nothing.
-
-    Existing outputs (and outputs that are ``inputs``) are refused before the run starts; an error, the time
-    limit or Ctrl-C leaves nothing behind.  ``keep_run`` keeps the engine's run folder as <name>.fullwave-run
-    beside the outputs.  Returns the result JSON content."""
-    from ..export.response_plot import write_response_plot
-    from ..outputs import StagedOutputs
-    from ..response import response_json, response_json_text
-    from ..sparams import mixed_mode, touchstone_text
-
-    name = layout.spec.name
-    find_engine()
-    with StagedOutputs(out_dir, force=force, inputs=inputs) as staged:
-        staged.require_free(output_names(name))
-        keep = Path(out_dir) / f"{name}.fullwave-run" if keep_run else None
-        if keep is not None and keep.exists() and not force:
-            raise EbgError(f"--keep-run {keep}: exists; pass --force to replace it")
-        result = simulate(layout, preset, threads, time_limit, progress, keep)
-        meta = result.meta
-        source = f"full-wave: {meta['engine']} FDTD, preset {meta['preset']}"
-        data = response_json(mixed_mode(result.network), source=source, target_hz=layout.spec.target_hz,
-                             threshold_db=threshold_db, extra={"fullwave": meta,
-                                                               "stackup": layout.stackup.to_json()})
-        comments = [f"source: {source}; {meta['symmetry']}", f"loss: {meta['loss']}",
-                    "a simulation of the drawn geometry, not a compliance measurement"]
-        staged.path(f"{name}.s4p").write_bytes(touchstone_text(result.network, comments, Z_REF).encode("ascii"))
-        staged.write_text(f"{name}.fullwave.json", response_json_text(data))
-        write_response_plot(data, staged.path(f"{name}.fullwave.svg"), staged.path(f"{name}.fullwave.png"), name)
-    return data
+    s = s_matrix([port_waves(model, d, sig, freq) for d, sig in runs], model.symmetric_along)
+    return skrf.Network(frequency=skrf.Frequency.from_f(freq, unit="Hz"), s=s, z0=Z_REF, name=name)
