@@ -77,7 +77,8 @@ def _box(p1, p2, priority: int = 0) -> str:
 def _polygon(poly, z: float, priority: int) -> str:
     pts = list(poly.exterior.coords)[:-1]
     verts = "".join(f'<Vertex X1="{_fmt(x)}" X2="{_fmt(y)}"/>' for x, y in pts)
-    return f'<Polygon Priority="{priority}" Elevation="{_fmt(z)}" NormDir="2" QtyVertices="{len(pts)}">{verts}</Polygon>'
+    return (f'<Polygon Priority="{priority}" Elevation="{_fmt(z)}" NormDir="2" QtyVertices="{len(pts)}">'
+            f'{verts}</Polygon>')
 
 
 def probe_names(port_number: int, feed_index: int) -> tuple[str, str]:

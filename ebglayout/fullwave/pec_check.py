@@ -95,7 +95,8 @@ def check_pec_dump(model: Model, path: Path) -> dict:
     for port in model.ports:
         feed = port.feeds[0]
         pts = points[pair_nodes]
-        near = pair_nodes[(np.abs(pts[:, 0] - feed.x) < tol) & (pts[:, 1] > feed.y0 - tol) & (pts[:, 1] < feed.y1 + tol)]
+        across = (pts[:, 1] > feed.y0 - tol) & (pts[:, 1] < feed.y1 + tol)
+        near = pair_nodes[(np.abs(pts[:, 0] - feed.x) < tol) & across]
         if not len(near):
             raise DrawnCheckFailed(f"fullwave check: port {port.number} ({port.polarity} {port.end} end) touches no "
                                    "trace copper in the engine's conductor map; nothing run")
