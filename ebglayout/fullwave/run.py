@@ -19,7 +19,7 @@ from __future__ import annotations
 import shutil
 import tempfile
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
@@ -28,7 +28,7 @@ import numpy as np
 from ..errors import EbgError
 from ..layout import Layout
 from .lines import microstrip_z0, stripline_z0
-from .model import PRESETS, Model, build_model, half_model, with_port_ohm
+from .model import PRESETS, Model, build_model, half_model
 from .openems import Progress, RunSignals, check_drawn, engine_version, find_engine, run_engine, spectrum
 
 Z_REF = 50.0
