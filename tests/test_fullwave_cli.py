@@ -89,7 +89,7 @@ def test_ctrl_c_stops_the_engine_and_writes_nothing(tmp_path, openems):
         engine_pids = [int(p) for p in os.listdir("/proc") if p.isdigit() and _cwd(p) == str(keep / "even-near")]
     proc.send_signal(signal.SIGINT)
     err = proc.communicate(timeout=60)[1].strip()
-    assert proc.returncode == 130 and err.splitlines() == ["ebglayout: interrupted"]
+    assert proc.returncode == 130 and err.splitlines() == ["ebglayout: interrupted"], err
     assert not [p for p in out.glob("hx2_l0_tx_straight.*") if p.is_file()]
     assert engine_pids and not any(Path(f"/proc/{pid}").exists() for pid in engine_pids)
 

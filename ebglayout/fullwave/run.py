@@ -210,3 +210,42 @@ def _network(freq: np.ndarray, runs: list, model: Model, name: str):
 
     s = s_matrix([port_waves(model, d, sig, freq) for d, sig in runs], model.symmetric_along)
     return skrf.Network(frequency=skrf.Frequency.from_f(freq, unit="Hz"), s=s, z0=Z_REF, name=name)
+
+
+def output_names(name: str) -> list[str]:
+    """Files of one full-wave check: Touchstone, result JSON, plot."""
+    return [f"{name}.s4p", f"{name}.fullwave.json", f"{name}.fullwave.svg", f"{name}.fullwave.png"]
+
+
+def fullwave_to_folder(layout: Layout, out_dir: Path, *, preset: str = "default", threads: int = 2,
+                       time_limit: float | None = None, keep_run: bool = False, threshold_db: float = -10.0,
+                       force: bool = False, progress=None, inputs: tuple = ()) -> dict:
+    """Simulate a layout and write <name>.s4p, <name>.fullwave.json and the plot (SVG, PNG), all or nothing.
+
+    Existing outputs (and outputs that are ``inputs``) are refused before the run starts; an error, the time
+    limit or Ctrl-C leaves nothing behind.  ``keep_run`` keeps the engine's run folder as <name>.fullwave-run
+    beside the outputs.  Returns the result JSON content."""
+    from ..export.response_plot import write_response_plot
+    from ..outputs import StagedOutputs
+    from ..response import response_json, response_json_text
+    from ..sparams import mixed_mode, touchstone_text
+
+    name = layout.spec.name
+    find_engine()
+    with StagedOutputs(out_dir, force=force, inputs=inputs) as staged:
+        staged.require_free(output_names(name))
+        keep = Path(out_dir) / f"{name}.fullwave-run" if keep_run else None
+        if keep is not None and keep.exists() and not force:
+            raise EbgError(f"--keep-run {keep}: exists; pass --force to replace it")
+        result = simulate(layout, preset, threads, time_limit, progress, keep)
+        meta = result.meta
+        source = f"full-wave: {meta['engine']} FDTD, preset {meta['preset']}"
+        data = response_json(mixed_mode(result.network), source=source, target_hz=layout.spec.target_hz,
+                             threshold_db=threshold_db, extra={"fullwave": meta,
+                                                               "stackup": layout.stackup.to_json()})
+        comments = [f"source: {source}; {meta['symmetry']}", f"loss: {meta['loss']}",
+                    "a simulation of the drawn geometry, not a compliance measurement"]
+        staged.path(f"{name}.s4p").write_bytes(touchstone_text(result.network, comments, Z_REF).encode("ascii"))
+        staged.write_text(f"{name}.fullwave.json", response_json_text(data))
+        write_response_plot(data, staged.path(f"{name}.fullwave.svg"), staged.path(f"{name}.fullwave.png"), name)
+    return data
