@@ -17,6 +17,7 @@ EXAMPLES = {
     "estimate": "ebglayout estimate samples/hx2_l2_tx_bridged.toml",
     "size": "ebglayout size --target 8GHz --er 4.1 --h 0.1 --style bridged --bridge 0.12,0.6",
     "refine": "ebglayout refine samples/hx2_l0_tx_straight.toml --observed 15.2GHz",
+    "fullwave": "ebglayout fullwave samples/hx2_l0_tx_straight.toml --out out/ --preset fast",
     "params": "ebglayout params --markdown",
     "pairs": "ebglayout pairs samples/hx2_hub.kicad_pcb",
     "place": "ebglayout place samples/hx2_hub.kicad_pcb --pair HX2_L0_TX_P HX2_L0_TX_N "
@@ -64,6 +65,18 @@ def _parser() -> argparse.ArgumentParser:
     p = command("estimate", "estimate the drawn cut's notch: cavity modes, bridged-cell LC, and the model's Scc21/Sdd21 over the tolerance corners")
     p.add_argument("spec", type=Path)
     p.add_argument("--json", action="store_true", help="print JSON")
+
+    p = command("fullwave", "simulate the drawn cut and pair full-wave on openEMS: <name>.s4p, .fullwave.json, plot")
+    p.add_argument("spec", type=Path)
+    p.add_argument("--out", type=Path, required=True, help="output folder")
+    p.add_argument("--preset", choices=("fast", "default", "fine"), default="default",
+                   help="mesh density and record length (default: default)")
+    p.add_argument("--threads", type=int, default=2, metavar="N", help="engine threads (default 2)")
+    p.add_argument("--time-limit", type=float, metavar="MIN", help="stop (and write nothing) after this many minutes")
+    p.add_argument("--keep-run", action="store_true", help="keep the engine's run folder as <name>.fullwave-run")
+    p.add_argument("--threshold", type=float, default=-10.0, metavar="DB",
+                   help="stopband threshold for |Scc21| (default -10 dB)")
+    p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("size", "first-pass patch size for a target notch")
     p.add_argument("--target", required=True, help='frequency ("8GHz") or NRZ data rate ("16Gbps")')
@@ -227,6 +240,53 @@ def _check(args) -> int:
         print("\n\n".join(r.format_table() for r in reports))
     failed = any(r.errors or (args.strict and r.warnings) for r in reports)
     return 1 if failed else 0
+
+
+def _fullwave(args) -> int:
+    from .fullwave.run import fullwave_to_folder
+    from .layout import build_layout
+    from .response import format_response
+    from .spec import load_spec
+
+    if args.threads < 1:
+        raise EbgError(f"--threads: {args.threads} is not allowed; give 1 or more")
+    if args.time_limit is not None and not args.time_limit > 0:
+        raise EbgError(f"--time-limit: {args.time_limit} is not allowed; give minutes > 0")
+    layout = build_layout(load_spec(args.spec))
+    bars = _EngineBars()
+    try:
+        data = fullwave_to_folder(layout, args.out, preset=args.preset, threads=args.threads,
+                                  time_limit=args.time_limit * 60 if args.time_limit else None,
+                                  keep_run=args.keep_run, threshold_db=args.threshold, force=args.force,
+                                  progress=bars.update if sys.stderr.isatty() else None, inputs=(args.spec,))
+    finally:
+        bars.close()
+    print(format_response(data))
+    print(f"wrote {layout.spec.name}.s4p, .fullwave.json, .fullwave.svg and .fullwave.png to {args.out}")
+    return 0
+
+
+class _EngineBars:
+    """One tqdm bar per engine run: time steps done, and the field energy left (dB below its peak)."""
+
+    def __init__(self):
+        self.bar = None
+        self.name = None
+
+    def update(self, name: str, state) -> None:
+        from tqdm import tqdm
+
+        if name != self.name:
+            self.close()
+            self.bar = tqdm(total=state.total, desc=f"openEMS {name}", unit="step", leave=False)
+            self.name = name
+        self.bar.n = min(state.step, state.total)
+        self.bar.set_postfix_str(f"energy {state.energy_db:.1f} dB", refresh=True)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
 
 
 def _jobs(asked: int) -> int:
@@ -404,7 +464,8 @@ def _params(args) -> int:
 
 
 COMMANDS = {"demo": _demo, "build": _build, "check": _check, "estimate": _estimate, "size": _size,
-            "refine": _refine, "pairs": _pairs, "place": _place, "kicad-package": _kicad_package, "params": _params}
+            "refine": _refine, "pairs": _pairs, "place": _place, "kicad-package": _kicad_package, "params": _params,
+            "fullwave": _fullwave}
 
 if __name__ == "__main__":
     sys.exit(main())

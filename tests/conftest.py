@@ -66,3 +66,16 @@ def pcbnew():
             pytest.fail(f"KiCad was installed for this run but cannot be used: {reason}")
         pytest.skip(reason)
     return module
+
+
+@pytest.fixture(scope="session")
+def openems():
+    """The openEMS executable; skips with the reason, or fails when the test runner promised openEMS."""
+    from ebglayout.fullwave.openems import EngineMissing, find_engine
+
+    try:
+        return find_engine()
+    except EngineMissing as err:
+        if os.environ.get("EBGLAYOUT_REQUIRE_OPENEMS") == "1":
+            pytest.fail(f"openEMS was installed for this run but cannot be used: {err}")
+        pytest.skip(str(err))

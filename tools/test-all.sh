@@ -1,17 +1,28 @@
 #!/usr/bin/env bash
 # The README's test command: install what the tests need, then run the whole suite.
 # On Debian as root it also installs KiCad (Debian package 'kicad') so the KiCad-backed
-# tests run against KiCad's own pcbnew; elsewhere those tests skip and say why.
+# tests run against KiCad's own pcbnew, and openEMS ('openems', 'python3-openems') for the
+# full-wave tests; elsewhere those tests skip and say why.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
 python=python3
 if [ "$(id -u)" = "0" ] && command -v apt-get >/dev/null 2>&1; then
-    if [ ! -e /usr/lib/python3/dist-packages/pcbnew.py ]; then
-        echo "== installing Debian's kicad and python3-venv (about 30 s)"
+    missing=""
+    [ -e /usr/lib/python3/dist-packages/pcbnew.py ] || missing="kicad python3-venv"
+    command -v openEMS >/dev/null 2>&1 || missing="$missing openems python3-openems"
+    if [ -n "$missing" ]; then
+        echo "== installing Debian's $missing (about a minute)"
         apt-get update -qq
-        DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends kicad python3-venv >/dev/null
+        # shellcheck disable=SC2086
+        DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends $missing >/dev/null
     fi
+fi
+if command -v openEMS >/dev/null 2>&1; then
+    # the full-wave tests run the engine; a broken install fails them instead of letting them skip
+    export EBGLAYOUT_REQUIRE_OPENEMS=1
+else
+    echo "== openEMS is not installed here: the full-wave tests will be skipped with that reason"
 fi
 if [ -e /usr/lib/python3/dist-packages/pcbnew.py ] && [ -x /usr/bin/python3 ]; then
     # pcbnew is built for Debian's own python3: test in a venv made from it, which also sees pcbnew.
