@@ -11,7 +11,7 @@ import math
 import numpy as np
 import pytest
 
-from ebglayout.fullwave.lines import microstrip_eps_eff, microstrip_z0
+from ebglayout.estimate.lines import microstrip_single
 from ebglayout.fullwave.run import simulate
 from ebglayout.layout import build_layout
 from ebglayout.response import summarize
@@ -66,11 +66,11 @@ def test_plain_line_impedance_and_loss(openems):
     f = net.f
     band = (f > 2e9) & (f < 0.9 * f.max())
     w, h, er, tan_d = 0.12, 0.1, 4.1, layout.stackup.planes[0].pair.tan_d
-    z0 = microstrip_z0(w, h, er)
+    z0 = microstrip_single(w / h, er).z0  # Hammerstad-Jensen (1980)
     for mode, expected in (("differential", 2 * z0), ("common", z0 / 2)):
         measured = np.median(np.real(_mode_z0(net, mode)[band]))
         assert measured == pytest.approx(expected, rel=0.03), mode
-    eps_eff = microstrip_eps_eff(w, h, er)
+    eps_eff = microstrip_single(w / h, er).eeff
     length_m = (result.meta["line_length_mm"]) * 1e-3
     k0 = 2 * math.pi * f / 299792458.0
     alpha = k0 * er * (eps_eff - 1) * tan_d / (2 * math.sqrt(eps_eff) * (er - 1))

@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import EbgError
 from ..layout import Layout
-from .lines import microstrip_z0, stripline_z0
+from ..estimate.lines import microstrip_single, stripline_single
 from .model import PRESETS, Model, build_model, half_model
 from .openems import Progress, RunSignals, check_drawn, engine_version, find_engine, run_engine, spectrum
 
@@ -61,9 +61,9 @@ def port_impedance(layout: Layout) -> float:
     w = layout.spec.pair_width
     if stack.stripline:
         b = stack.planes[0].pair.h + stack.planes[1].pair.h
-        return stripline_z0(w, b, stack.planes[0].pair.er)
+        return stripline_single(w, b, stack.planes[0].pair.er).z0
     plane = stack.planes[0].pair
-    return microstrip_z0(w, plane.h, plane.er)
+    return microstrip_single(w / plane.h, plane.er).z0
 
 
 def plan(model: Model, symmetry: str = "auto") -> list[Drive]:
