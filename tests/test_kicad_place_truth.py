@@ -101,6 +101,14 @@ def test_stripline_planes_on_one_side_are_refused(stripline, tmp_path, capsys):
     assert "In1.Cu (GND), In2.Cu (the pair), In3.Cu (GND), In4.Cu (no plane)" in err
 
 
+def test_stripline_pair_cut_in_one_plane_is_refused(stripline, tmp_path, capsys):
+    """A pair between two planes returns its common mode on both (common practice): a cut in one of them alone
+    leaves the other plane as an uncut return path, so place refuses instead of writing the half cut."""
+    one_plane = spec(tmp_path, "one", plane={"layers": ["In1.Cu"], "net": "GND"}, stackup=None)
+    err = refused(stripline, capsys, "--pair", "HX2_L3_RX_DP", "HX2_L3_RX_DN", "--spec", one_plane)
+    assert "plane.layers = ['In1.Cu']: HX2_L3_RX is stripline between In1.Cu and In3.Cu: cut both planes" in err
+
+
 def test_spec_stackup_against_the_board(hub, tmp_path, capsys):
     """er 3.8 / h 0.09 in the spec against the board's 4.1 / 0.1: refused, unless forced; the report says which
     value came from where."""

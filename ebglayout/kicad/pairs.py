@@ -621,7 +621,8 @@ def verify_plane_layers(board: Board, pair: BoardPair, layers: list[str], net: s
 
     Each layer must exist, carry a zone of ``net`` under the pair, and be the
     nearest copper-zone layer on its side of the pair (the return current runs
-    on the nearest plane of any net); two layers must lie on opposite sides.
+    on the nearest plane of any net); two layers must lie on opposite sides, and
+    a pair with a plane on both sides (stripline) needs both.
     """
     order, region = board.copper_layers, polyline_of(pair.path)
     value = list(layers) if given else f"{list(layers)} (found on the board)"
@@ -645,6 +646,10 @@ def verify_plane_layers(board: Board, pair: BoardPair, layers: list[str], net: s
         if nearest != layer:
             refuse(f"{nearest} ({_zone_nets(board, nearest, region)}) lies between {pair.layer} and {layer}, so the "
                    f"pair's return current runs on {nearest}, not on the {net} plane of {layer}")
+    if len(layers) == 1:
+        other = _nearest_plane(board, pair.layer, -sides[0], region)
+        if other is not None:
+            refuse(f"{pair.base} is stripline between {layers[0]} and {other}: cut both planes")
 
 
 STACKUP_AGREEMENT = 0.01
