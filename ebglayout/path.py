@@ -57,7 +57,7 @@ def piece_points(piece: Line | Arc) -> list[tuple[float, float]]:
         return [piece.start, piece.end]
     geo = arc_geometry(piece)
     step = 2 * math.acos(max(-1.0, 1 - ARC_TOLERANCE_MM / geo.radius)) if geo.radius > ARC_TOLERANCE_MM else math.pi / 2
-    n = max(2, math.ceil(abs(geo.sweep) / step))
+    n = max(2, math.ceil(abs(geo.sweep) / step)) if step > 0 else 2  # step 0: radius so large the arc is straight
     angles = geo.start_angle + geo.sweep * np.linspace(0.0, 1.0, n + 1)
     pts = [(geo.centre[0] + geo.radius * math.cos(t), geo.centre[1] + geo.radius * math.sin(t)) for t in angles]
     pts[0], pts[-1] = piece.start, piece.end
