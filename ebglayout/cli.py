@@ -6,7 +6,7 @@ import json
 import sys
 from pathlib import Path
 
-from . import __version__
+from . import CAUTION, __version__
 from .errors import EbgError, one_line
 from .units import LENGTH_UNITS_MM
 
@@ -182,10 +182,12 @@ def _demo(args) -> int:
         band = f"{est['notch_spread']['low_hz'] / 1e9:.2f}-{est['notch_spread']['high_hz'] / 1e9:.2f} GHz" if est else "-"
         print(f"{result.name:<22} {result.layout.spec.style:<8} cells {len(result.layout.cells):>2}  crossings P/N "
               f"{c.crossings['P']:>2}/{c.crossings['N']:<2}  min slot {format_length(c.min_slot_width, c.units)}  "
-              f"notch spread {band}  "
+              f"cell notch spread (cavity model) {band}  "
               f"errors {len(c.errors)} warnings {len(c.warnings)}  -> {args.out / result.name}")
         worst = max(worst, 1 if c.errors else 0)
-    print("Estimates are for placement and review; confirm with a field solve and measurement.")
+    print("Notch figures come from the cavity and circuit models, not a full-wave run (the README compares them with "
+          "openEMS: the model's straight-cell notch sits about 3 % high); confirm with `ebglayout fullwave` and a "
+          f"measurement. {CAUTION}.")
     return worst
 
 
