@@ -299,6 +299,11 @@ def _hub_line(text: str, needle: str) -> int:
      "(width 1e+09) must be > 0 and at most 1000 mm"),
     ("(end 110 90.135) (width 0.12)", "(end 1e15 90.135) (width 0.12)", "(segment",
      "(end 1e+15 90.135) coordinates must lie within +-2147.483647 mm"),
+    ("(min_thickness 0.2)", '(min_thickness "*.Cu")', "(zone", "(min_thickness *.Cu) must be a width from 0 to 1000 mm"),
+    ("(min_thickness 0.2)", "(min_thickness 0.2) (priority 1.5)", "(zone",
+     "(priority 1.5) must be a whole number from 0 to 2147483647"),
+    ("(gr_line (start 92 80)", "(gr_line (start 1e308 80)", "(gr_line",
+     "gr_line on Edge.Cuts: (start 1e308 80) must lie within +-2147.483647 mm"),
 ])
 @pytest.mark.parametrize("command", ["pairs", "place"])
 def test_board_values_name_file_line_and_item(tmp_path, capsys, old, new, item, words, command):

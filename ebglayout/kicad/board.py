@@ -1135,13 +1135,21 @@ class _Reader:
                 if isinstance(flag, list) and len(flag) > 1 and flag[0] in KEEPOUT_FLAGS:
                     keepout[flag[0]] = flag[1] == "allowed"
         fill_spans = tuple(self._subspans(start, end, b"filled_polygon"))
+
+        def number(parent: list | None, head: str, at: int | None = None) -> float | None:
+            found = _child(parent, head) if at is None else parent
+            try:
+                return zone_number(head, found[1 if at is None else at + 1]) if found is not None else None
+            except (ValueError, IndexError) as err:
+                raise self.fail(start, f"zone {show(name)}: {err}") from None
+
         return Zone(
             layers=self._layer_list(node), net=net, net_name=str(_atom(node, "net_name", default=self.nets[net])),
             name=name, rings=tuple(rings), outline=outline,
-            clearance=_num(connect, "clearance") if connect is not None else None,
-            min_thickness=_num(node, "min_thickness"), priority=int(_num(node, "priority") or 0),
-            island_removal=ISLAND_MODES.get(int(float(mode[1])), "always") if mode is not None else "always",
-            island_area_min=float(area[1]) if area is not None else None, keepout=keepout,
+            clearance=number(connect, "clearance"), min_thickness=number(node, "min_thickness"),
+            priority=int(number(node, "priority") or 0),
+            island_removal=ISLAND_MODES[int(number(mode, "island_removal_mode", 0))] if mode is not None else "always",
+            island_area_min=number(area, "island_area_min", 0), keepout=keepout,
             filled=(fill is not None and len(fill) > 1 and fill[1] == "yes") or bool(fill_spans),
             fill_spans=fill_spans, footprint=footprint, span=(start, end),
         )
@@ -1383,6 +1391,10 @@ class _Reader:
 
     def _edge_item(self, node: list, fp: Footprint | None, offset: int, open_lines: list, rings: list) -> None:
         kind = str(node[0])[3:]
+        far = _far_point(node)
+        if far is not None:
+            raise self.fail(offset, f"{node[0]} on Edge.Cuts: ({far[0]} {show(far[1])} {show(far[2])}) must lie "
+                            f"within +-{MAX_COORD_MM} mm (KiCad's board range)")
         move = (lambda p: fp.to_board(*p)) if fp is not None else (lambda p: p)
         try:
             if kind == "line":
@@ -1413,6 +1425,39 @@ class _Reader:
                 open_lines.append(np.array([move(p) for p in pts]))
         except (TypeError, ValueError, IndexError) as err:
             raise self.fail(offset, f"bad {node[0]} on Edge.Cuts: {err}") from None
+
+
+ZONE_NUMBERS = {
+    "clearance": (lambda x: 0 <= x <= MAX_SIZE_MM, f"a length from 0 to {MAX_SIZE_MM:g} mm"),
+    "min_thickness": (lambda x: 0 <= x <= MAX_SIZE_MM, f"a width from 0 to {MAX_SIZE_MM:g} mm"),
+    "priority": (lambda x: x == int(x) and 0 <= x <= 2147483647, "a whole number from 0 to 2147483647"),
+    "island_removal_mode": (lambda x: x in ISLAND_MODES, "0, 1 or 2 (always, never, below an area)"),
+    "island_area_min": (lambda x: x >= 0, "an area of 0 mm2 or more"),
+    "xy": (lambda x: abs(x) <= MAX_COORD_MM, f"a coordinate within +-{MAX_COORD_MM} mm (KiCad's board range)"),
+}
+"""The zone settings read as numbers: which values a board may hold, and how an error says so."""
+
+
+def zone_number(head: str, value) -> float:
+    """A zone setting ``(head value)`` as a number; ValueError naming the value and what is allowed."""
+    usable, allowed = ZONE_NUMBERS[head]
+    if not (_is_number(value) and usable(float(value))):
+        raise ValueError(f"({head} {show(value)}) must be {allowed}")
+    return float(value)
+
+
+def _far_point(node: list) -> list | None:
+    """The first (start|mid|end|center|xy X Y) under ``node`` with a finite coordinate outside KiCad's range."""
+    for item in node[1:]:
+        if not isinstance(item, list) or not item:
+            continue
+        if item[0] in ("start", "mid", "end", "center", "xy") and any(
+                _is_number(v) and abs(float(v)) > MAX_COORD_MM for v in item[1:3]):
+            return item
+        found = _far_point(item) if item[0] in ("pts", "arc") else None
+        if found is not None:
+            return found
+    return None
 
 
 def _row_numbers(row: tuple, fields: tuple[int, ...], counts: tuple[int, ...]) -> list[float] | None:

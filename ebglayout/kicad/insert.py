@@ -12,8 +12,9 @@ import re
 import shapely
 from shapely.geometry import Polygon
 
-from ..errors import BoardError
+from ..errors import BoardError, show
 from ..layout import Layout
+from .board import zone_number
 from .footprint import DIALECTS, KICAD6, KICAD9, area_name
 from .rules import RULE_NAME, has_rule
 from .sexpr import error_in_text
@@ -82,7 +83,7 @@ def set_plane_net(item_text: str, code: int, name: str) -> str:
 def zone_priority_for(board_text: str, layout: Layout, plane: str, source: str = "<board>") -> int:
     """A priority for the bridged patch zones: one above every plane zone on the cut layers."""
     layers = {c.layer for c in layout.cuts}
-    prios = [z["priority"] for z in _board_zones(board_text, _children(board_text, source))
+    prios = [z["priority"] for z in _board_zones(board_text, _children(board_text, source), source)
              if z["net"] == plane and set(z["layers"]) & layers and not z["keepout"]]
     return max(prios, default=0) + 1
 
@@ -137,7 +138,8 @@ def fill_risks(board_text: str, layout: Layout, plane_net: str = "GND", rules_te
                              f"narrower than that next to the cut (near {x:.3f}, {y:.3f}, where it is {width:g} mm wide); "
                              "lower the zone's min width or widen cut.web")
         if spec.style == "bridged":
-            risks.extend(_bridged_zone_risks(board_text, children, layout, layer, plane_net, covering))
+            risks.extend(_bridged_zone_risks(board_text, children, layout, layer, plane_net, covering,
+                                             source))
     return risks
 
 
@@ -145,12 +147,13 @@ def fill_risks(board_text: str, layout: Layout, plane_net: str = "GND", rules_te
 def _board_facts(text: str, source: str) -> tuple[list, list[str], list[dict]]:
     """(top-level items, copper layers, zones) of a board text, read once for all the filters checked against it."""
     children = _children(text, source)
-    return children, _copper_layers(text, children), _board_zones(text, children)
+    return children, _copper_layers(text, children), _board_zones(text, children, source)
 
 
-def _bridged_zone_risks(board_text, children, layout, layer, plane, covering) -> list[str]:
+def _bridged_zone_risks(board_text, children, layout, layer, plane, covering, source) -> list[str]:
     prefix = area_name(layout) + "_patch"
-    ours = [z for z in _footprint_zones(board_text, children) if z["name"].startswith(prefix) and layer in z["layers"]]
+    ours = [z for z in _footprint_zones(board_text, children, source)
+            if z["name"].startswith(prefix) and layer in z["layers"]]
     out = []
     top = max(z["priority"] for z in covering)
     for zone in ours:
@@ -278,23 +281,42 @@ def _copper_layers(text: str, children) -> list[str]:
     return []
 
 
-def _zone_record(form) -> dict:
+def _zone_record(text: str, start: int, end: int, source: str) -> dict:
+    """A zone's facts, its numbers checked as the board reader checks them (the texts here are read boards)."""
+    form = _parse(text[start:end])
+    name = _find(form, "name")
+    name = name[1] if name and len(name) > 1 else ""
+
+    def number(head: str, value):
+        try:
+            return zone_number(head, value)
+        except ValueError as err:
+            raise error_in_text(source, text, start, f"zone {show(name)}: {err}") from None
+
+    def field(head: str) -> float | None:
+        found = _find(form, head)
+        return number(head, found[1] if len(found) > 1 else None) if found else None
+
+    def xy(p: list) -> tuple[float, float]:
+        return tuple(number("xy", v) for v in (p[1:] + [None, None])[:2])
+
     net_name = _find(form, "net_name")
     layer = _find(form, "layer")
     layers = _find(form, "layers")
-    name = _find(form, "name")
-    prio = _find(form, "priority")
-    minw = _find(form, "min_thickness")
+    prio = field("priority")
+    minw = field("min_thickness")
     fill = _find(form, "fill") or []
     polys = []
     for poly in (x for x in form[1:] if isinstance(x, list) and x and x[0] == "polygon"):
         pts = _find(poly, "pts") or []
         ring = []
         for p in pts[1:]:
+            if not isinstance(p, list) or not p:
+                continue
             if p[0] == "xy":
-                ring.append((float(p[1]), float(p[2])))
+                ring.append(xy(p))
             elif p[0] == "arc":
-                ring.extend((float(q[1]), float(q[2])) for q in p[1:] if isinstance(q, list) and len(q) >= 3)
+                ring.extend(xy(q) for q in p[1:] if isinstance(q, list) and q)
         if len(ring) >= 3:
             polys.append(Polygon(ring))
     outline = None
@@ -304,18 +326,18 @@ def _zone_record(form) -> dict:
             outline = outline.difference(hole)
     return {
         "net": net_name[1] if net_name and len(net_name) > 1 else "",
-        "layers": tuple(layers[1:]) if layers else ((layer[1],) if layer else ()),
-        "name": name[1] if name and len(name) > 1 else "",
-        "priority": int(prio[1]) if prio else 0,
-        "min_width": float(minw[1]) if minw else 0.0,
+        "layers": tuple(layers[1:]) if layers else ((layer[1],) if layer and len(layer) > 1 else ()),
+        "name": name,
+        "priority": int(prio) if prio is not None else 0,
+        "min_width": minw if minw is not None else 0.0,
         "hatch": any(isinstance(x, list) and x[:2] == ["mode", "hatch"] for x in fill[1:]),
         "keepout": _find(form, "keepout") is not None,
         "outline": outline,
     }
 
 
-def _board_zones(text: str, children) -> list[dict]:
-    return [_zone_record(_parse(text[s:e])) for head, s, e in children if head == "zone"]
+def _board_zones(text: str, children, source: str) -> list[dict]:
+    return [_zone_record(text, s, e, source) for head, s, e in children if head == "zone"]
 
 
 def _zone_spans(text: str):
@@ -331,7 +353,7 @@ def _zone_spans(text: str):
     return sorted(spans)
 
 
-def _footprint_zones(text: str, children) -> list[dict]:
+def _footprint_zones(text: str, children, source: str) -> list[dict]:
     out = []
     for head, start, end in children:
         if head == "footprint":
@@ -339,5 +361,5 @@ def _footprint_zones(text: str, children) -> list[dict]:
             if "(zone" not in block:
                 continue
             for s, e in _zone_spans(block):
-                out.append(_zone_record(_parse(block[s:e])))
+                out.append(_zone_record(text, start + s, start + e, source))
     return out
