@@ -130,3 +130,13 @@ def test_dxf_dimensions_and_notes_are_in_mil(mil_spec, tmp_path):
         assert unit == "mil" and float(value) == pytest.approx(dim.get_measurement() / MIL_MM, abs=1e-4)
     notes = " ".join(m.plain_text() for m in doc.modelspace().query("MTEXT"))
     assert "Slot 6 mil; web 12 mil" in notes and "h 4 mil" in notes and " mm," not in notes.replace("mm;", "")
+
+
+def test_estimate_speaks_mil_down_to_the_etch_corner(mil_spec, capsys):
+    """Every length `estimate` prints for a mil spec is in mil, the etch tolerance of the model's corners too."""
+    assert main(["estimate", str(mil_spec)]) == 0
+    text = capsys.readouterr().out
+    assert not re.search(r"\d mm\b", text), text
+    assert main(["estimate", str(mil_spec), "--json"]) == 0
+    etch_mm = float(re.search(r'"etch_mm": ([\d.e-]+)', capsys.readouterr().out).group(1))
+    assert f"etch +-{etch_mm / MIL_MM:.4g} mil" in text

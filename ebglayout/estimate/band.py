@@ -251,13 +251,13 @@ def format_table(estimate: Estimate, units: str = "mm") -> str:
     lines.extend(notes)
     if estimate.rejection is not None:
         lines.append("")
-        lines.extend(format_rejection(estimate.rejection.to_json()))
+        lines.extend(format_rejection(estimate.rejection.to_json(), units))
     lines.append(f"caution: {CAUTION}")
     return "\n".join(lines)
 
 
-def format_rejection(data: dict) -> list[str]:
-    """The model's figures (a ``Rejection.to_json`` dict), each line saying they come from the model."""
+def format_rejection(data: dict, units: str = "mm") -> list[str]:
+    """The model's figures (a ``Rejection.to_json`` dict), each line saying they come from the model; etch in units."""
     cc = data["scc21"]
     level = f"{cc['threshold_db']:g} dB"
     out = [f"model (circuit model, not a full-wave run): Scc21 notch {format_hz(cc['notch_hz'])}, "
@@ -270,7 +270,7 @@ def format_rejection(data: dict) -> list[str]:
     low, high = data["notch_spread_hz"]
     tol = data["tolerances"]
     out.append(f"model: over the nominal and {len(data['tolerance']['corners']) - 1} corners (er +-{tol['er']:.0%}, h and pair_h +-{tol['h']:.0%}, "
-               f"etch +-{tol['etch_mm']:g} mm): notch spread {format_hz(low)} .. {format_hz(high)}, shallowest "
+               f"etch +-{format_length(tol['etch_mm'], units)}): notch spread {format_hz(low)} .. {format_hz(high)}, shallowest "
                f"depth {data['tolerance']['worst_depth_db']:.1f} dB")
     bands = data["tolerance"]["guaranteed_stopband_hz"]
     out.append(f"model: guaranteed stopband at {level}: " + (", ".join(
