@@ -1136,20 +1136,22 @@ class _Reader:
                     keepout[flag[0]] = flag[1] == "allowed"
         fill_spans = tuple(self._subspans(start, end, b"filled_polygon"))
 
-        def number(parent: list | None, head: str, at: int | None = None) -> float | None:
-            found = _child(parent, head) if at is None else parent
+        def number(field: list | None) -> float | None:
+            """The checked value of a ``(head value)`` setting; None when the board leaves it out."""
+            if field is None:
+                return None
             try:
-                return zone_number(head, found[1 if at is None else at + 1]) if found is not None else None
-            except (ValueError, IndexError) as err:
+                return zone_number(field[0], field[1] if len(field) > 1 else None)
+            except ValueError as err:
                 raise self.fail(start, f"zone {show(name)}: {err}") from None
 
         return Zone(
             layers=self._layer_list(node), net=net, net_name=str(_atom(node, "net_name", default=self.nets[net])),
             name=name, rings=tuple(rings), outline=outline,
-            clearance=number(connect, "clearance"), min_thickness=number(node, "min_thickness"),
-            priority=int(number(node, "priority") or 0),
-            island_removal=ISLAND_MODES[int(number(mode, "island_removal_mode", 0))] if mode is not None else "always",
-            island_area_min=number(area, "island_area_min", 0), keepout=keepout,
+            clearance=number(_child(connect, "clearance")), min_thickness=number(_child(node, "min_thickness")),
+            priority=int(number(_child(node, "priority")) or 0),
+            island_removal=ISLAND_MODES[int(number(mode))] if mode is not None else "always",
+            island_area_min=number(area), keepout=keepout,
             filled=(fill is not None and len(fill) > 1 and fill[1] == "yes") or bool(fill_spans),
             fill_spans=fill_spans, footprint=footprint, span=(start, end),
         )
@@ -1393,7 +1395,7 @@ class _Reader:
         kind = str(node[0])[3:]
         far = _far_point(node)
         if far is not None:
-            raise self.fail(offset, f"{node[0]} on Edge.Cuts: ({far[0]} {show(far[1])} {show(far[2])}) must lie "
+            raise self.fail(offset, f"{node[0]} on Edge.Cuts: ({' '.join(show(v) for v in far[:3])}) must lie "
                             f"within +-{MAX_COORD_MM} mm (KiCad's board range)")
         move = (lambda p: fp.to_board(*p)) if fp is not None else (lambda p: p)
         try:

@@ -295,7 +295,7 @@ def _zone_record(text: str, start: int, end: int, source: str) -> dict:
 
     def field(head: str) -> float | None:
         found = _find(form, head)
-        return number(head, found[1] if len(found) > 1 else None) if found else None
+        return number(head, found[1] if len(found) > 1 else None) if found is not None else None
 
     def xy(p: list) -> tuple[float, float]:
         return tuple(number("xy", v) for v in (p[1:] + [None, None])[:2])
