@@ -25,11 +25,8 @@ from shapely import affinity
 from shapely.geometry import LineString, MultiPolygon, Polygon
 
 from ..errors import EbgError
-
-C0 = 299_792_458.0
-"""Speed of light in vacuum, m/s (exact, SI definition)."""
-MU0 = 1.25663706212e-6
-"""Vacuum permeability, H/m (CODATA 2018)."""
+from ..errors import check_positive as _check_positive
+from ..physics import C0, MU0
 
 _MIN_CELLS = 8
 _MAX_CELLS = 400
@@ -112,11 +109,6 @@ def _as_polygon(geom) -> Polygon:
         raise EbgError("patch polygon must be one valid, non-empty polygon")
     return geom
 
-
-def _check_positive(**values: float) -> None:
-    for key, value in values.items():
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
 
 
 def _grid_step(local: Polygon, n: int, accuracy: float) -> float:

@@ -20,9 +20,9 @@ import numpy as np
 from shapely.geometry import Polygon
 
 from ..errors import EbgError
+from ..errors import check_positive as _positive
+from ..physics import EPS0
 
-EPS0 = 8.8541878128e-12
-"""Vacuum permittivity, F/m (CODATA 2018)."""
 MU0_OVER_2PI = 2e-7
 """mu0 / (2 pi) in H/m (the classical value 4 pi 1e-7 H/m; the SI 2019 change is below 1e-9)."""
 COPPER_1OZ_MM = 0.035
@@ -109,8 +109,3 @@ def lc_notch(patch_polygon: Polygon, bridges: Sequence[Polygon], h: float, er: f
     c = plate_capacitance(patch_polygon.area, h, er, perimeter)
     return lc_frequency(cell_inductance(bridges, bridge_length, thickness_mm), c)
 
-
-def _positive(**values: float) -> None:
-    for key, value in values.items():
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
