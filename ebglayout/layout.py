@@ -199,11 +199,6 @@ def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Tr
     return trace_from_line(polarity, net, spec.pair_layer, spec.pair_width, offset_pieces(route, sign * spec.trace_offset))
 
 
-def route_length_difference(layout: Layout) -> float:
-    """Total P-minus-N centre-line length, measured on the traces (mm)."""
-    return layout.trace("P").centreline.length - layout.trace("N").centreline.length
-
-
 def effective_permittivity(spec: FilterSpec) -> float:
     """Permittivity that sets the delay of the traces: er for stripline, a rough microstrip value otherwise.
 

@@ -64,21 +64,6 @@ def plane_net(board_text: str, name: str, source: str = "<board>") -> tuple[int,
                      "is inserted (allowed: a net name declared by a top-level (net N \"name\") line)")
 
 
-def set_plane_net(item_text: str, code: int, name: str) -> str:
-    """Give the copper zones (not the rule areas) of one inserted footprint block the plane's net."""
-    out, pos = [], 0
-    for start, end in _zone_spans(item_text):
-        zone = item_text[start:end]
-        if "(keepout" in zone:
-            continue
-        new = re.sub(r'^\(zone \(net \d+\) \(net_name "(?:[^"\\]|\\.)*"\)',
-                     f'(zone (net {code}) (net_name {_quote(name)})', zone)
-        out.append(item_text[pos:start] + new)
-        pos = end
-    out.append(item_text[pos:])
-    return "".join(out)
-
-
 def zone_priority_for(board_text: str, layout: Layout, plane: str, source: str = "<board>") -> int:
     """A priority for the bridged patch zones: one above every plane zone on the cut layers."""
     layers = {c.layer for c in layout.cuts}
@@ -192,10 +177,6 @@ def _inscribed_radius(poly) -> float:
 
 
 # --- minimal board reading -------------------------------------------------------------------------------
-
-
-def _quote(text: str) -> str:
-    return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
 
 
 _STRUCTURE = re.compile(r'"(?:[^"\\]|\\.)*"|"|[()]', re.S)
