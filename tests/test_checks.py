@@ -240,7 +240,8 @@ def test_fold_skew_measures_a_detour_between_crossings():
 
 
 def test_notch_target_without_estimate_uses_the_cavity_formula():
-    """f10 = c / (2 a sqrt(er)) (cavity model; Pozar, Microwave Engineering): a = 3 mm, er = 4 gives 24.98 GHz."""
+    """f10 = c / (2 a sqrt(er)) (cavity model; Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, from memory): a = 3 mm,
+    er = 4 gives 24.98 GHz."""
     on = make(target="25GHz")
     assert findings(on, "notch-target") == []
     off = findings(make(target="12GHz"), "notch-target")

@@ -1,8 +1,9 @@
 """Footprint text in the KiCad 6-9 dialects, rule merging and board insertion.
 
 KiCad 6's own footprint loader (``pcbnew.FootprintLoad``) is the outside check
-for the 6 dialect; the 7/8/9 dialects are checked at text level only (tokens
-from KiCad's file-format changes, fact sheet 1.3), since only KiCad 6 is here.
+for the 6 dialect.  On a host with KiCad 6.0.11 the 7/8/9 dialects are checked at text level (tokens from KiCad's
+file-format changes) and must be refused by 6.0.11; the KiCad 9 root (tools/kicad9-root.sh) runs the same tests
+with 9.0.2, which loads all four dialects.
 """
 from __future__ import annotations
 

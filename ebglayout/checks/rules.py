@@ -84,8 +84,8 @@ RULES: tuple[Rule, ...] = (
          "(light check without the model: target within target_tolerance of the cells' notch spread)",
          "target_margin = 0.5 %",
          "circuit model: coupled lines (Hammerstad-Jensen, Kirschning-Jansen, Cohn) and the cavity's modal expansion "
-         "(Okoshi); light check: cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., "
-         "sec. 9.7, from memory)"),
+         "(Okoshi); light check: cavity model of a rectangular patch (C. A. Balanis, Antenna Theory, 3rd ed., "
+         "sec. 14.2.2, from memory)"),
 )
 RULE_BY_ID = {r.id: r for r in RULES}
 

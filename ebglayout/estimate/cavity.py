@@ -2,8 +2,8 @@
 
 The patch and the plane below it form a thin cavity whose side walls are, to
 first order, magnetic walls (the cavity model of the rectangular microstrip
-patch; D. M. Pozar, Microwave Engineering, 4th ed., and C. A. Balanis, Antenna
-Theory, 3rd ed., ch. 14).  For a cavity much thinner than a wavelength only the
+patch; C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, from memory).
+For a cavity much thinner than a wavelength only the
 TMmn modes with no field variation across the thickness matter, and their
 field E_z obeys the 2D Helmholtz equation -lap(u) = k^2 u on the patch shape
 with the Neumann condition du/dn = 0 on its edge.  The resonance is then
@@ -36,7 +36,7 @@ def rect_modes(a: float, b: float, er: float, n: int = 3) -> list[tuple[float, i
     """Lowest ``n`` TMmn resonances (f_hz, m, n) of an a x b mm patch with magnetic side walls.
 
     f_mn = c / (2 sqrt(er)) * sqrt((m/a)^2 + (n/b)^2), (m, n) != (0, 0)
-    (Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch).
+    (C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory).
     Ties are ordered by (m, n).
     """
     _check_positive(a=a, b=b, er=er)

@@ -1,7 +1,7 @@
 """First-pass patch size for a target notch, and the two-stage correction after a field solve.
 
 Rectangles invert the cavity model's fundamental, f10 = c / (2 a sqrt(er))
-(Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch),
+(C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory),
 for the patch's long side.  Bridged cells are sized by solving the same model
 ``band.estimate_cell`` uses (lower of the LC resonance and the lowest cavity
 mode of the drawn, pocketed patch) for the patch scale with Brent's method

@@ -17,6 +17,9 @@ VERSIONS = {20211014: "6.0", 20221018: "7.0", 20240108: "8.0", 20241229: "9.0"}
 """Version stamps of the major releases (KiCad's own version history; 10.0 files carry 2026xxxx)."""
 OLDEST_VERSION = 20211014
 NEWEST_CHECKED = 20260206
+"""The newest stamp this reader was tested with: tests/boards/hx2_v10.kicad_pcb, written as text by
+tests/boards/make_boards.py after KiCad 10's format changes (net names instead of codes).  Not checked against a
+file saved by a real KiCad of that version; newer stamps are read with a warning."""
 COPPER_TYPES = frozenset({"signal", "power", "mixed", "jumper"})
 
 _NET_NAME = re.compile(rb'\(net\s+"((?:[^"\\]|\\.)*)"\s*\)')
