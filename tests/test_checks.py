@@ -118,7 +118,10 @@ def test_pair_symmetry_flags_a_skewed_slot_edge():
     slot = as_multipolygon(cut.outline.difference(patch))
     moved = with_copper(layout, cuts=(replace(cut, patch=patch, slot=slot),))
     errors = findings(moved, "crossing-symmetry")
-    assert errors and errors[0].value == pytest.approx(0.2 * 0.2 / 2.4, abs=0.01)
+    # Hand-derived: the patch edge leans 0.2 mm over its 2.4 mm height, so at the traces (y = +-0.1, 0.2 apart) it
+    # sits 0.2 * 0.2 / 2.4 apart along the pair; the outer slot edge is straight, so the slot's midline, where a
+    # crossing is measured, moves half of that: 0.2 * 0.2 / 2.4 / 2 = 0.008333 mm.
+    assert errors and errors[0].value == pytest.approx(0.2 * 0.2 / 2.4 / 2, abs=1e-6)
     assert "ps of skew" in errors[0].message
     assert errors[0].at[0] == pytest.approx(x0 - 0.075, abs=0.05)
 
@@ -139,7 +142,9 @@ def test_bridge_keepout_and_symmetry():
     layout = make(cut=bridged)
     assert findings(layout, "bridge-keepout") == [] and findings(layout, "bridge-symmetry") == []
     close = findings(make(cut=bridged, rules={"bridge_keep": 2.0}), "bridge-keepout")
-    assert close and close[0].value == pytest.approx(1.2 - 0.4 + 0.15 - 0.15 - 0.15, abs=0.2)
+    # Hand-derived: a bridge runs from the plane's edge (patch half-height 1.2 + slot 0.15) inward by its length 0.4,
+    # so it ends at 1.2 - (0.4 - 0.15) = 0.95; the P trace's outer edge is at (0.1 + 0.1) / 2 + 0.1 / 2 = 0.15.
+    assert close and close[0].value == pytest.approx(1.2 - (0.4 - 0.15) - 0.15, abs=1e-6)
     cut = layout.cuts[0]
     shifted = [translate(b, 0.3, 0) if i == 0 else b for i, b in enumerate(cut.bridge.geoms)]
     moved = with_copper(layout, cuts=(replace(cut, bridge=as_multipolygon(shapely.union_all(shifted))),))
