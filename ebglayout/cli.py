@@ -30,8 +30,7 @@ def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="ebglayout",
         description="Plane-cut EBG common-mode filters under routed differential pairs: build, check, estimate, export.",
-        epilog="The tool draws, checks and estimates; compliance rests on field solves, measurements, the applicable "
-               "EMC standards and the responsible engineer.")
+        epilog=f"{CAUTION}.")
     parser.add_argument("--version", action="version", version=f"ebglayout {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")

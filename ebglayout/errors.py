@@ -3,6 +3,7 @@
 Subclasses also inherit ValueError so callers may catch either.  The CLI turns
 any ``EbgError`` into one line on stderr and exit code 2.
 """
+import math
 
 
 class EbgError(ValueError):
@@ -27,6 +28,13 @@ class PlacementError(EbgError):
 
 class BoardError(EbgError):
     """A board file cannot be read; the message carries file, line and column."""
+
+
+def check_positive(**values: float) -> None:
+    """Refuse any value that is not a finite number > 0 (a bool is not a number here), naming its key."""
+    for key, value in values.items():
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
+            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
 
 
 def located(err: EbgError, where: str) -> EbgError:

@@ -21,6 +21,7 @@ from .cells import BUILDERS
 from .crossing import Crossing, SlotIndex, find_crossings
 from .fold import Turn, fold
 from .path import offset_pieces, polyline_of, validate_centre_line
+from .physics import C0
 from .placement import place_row
 from .spec import Arc, FilterSpec, Line
 from .stackup import Stackup, stackup_of
@@ -198,11 +199,6 @@ def _trace(spec: FilterSpec, route: tuple[Line | Arc, ...], polarity: str) -> Tr
     return trace_from_line(polarity, net, spec.pair_layer, spec.pair_width, offset_pieces(route, sign * spec.trace_offset))
 
 
-def route_length_difference(layout: Layout) -> float:
-    """Total P-minus-N centre-line length, measured on the traces (mm)."""
-    return layout.trace("P").centreline.length - layout.trace("N").centreline.length
-
-
 def effective_permittivity(spec: FilterSpec) -> float:
     """Permittivity that sets the delay of the traces: er for stripline, a rough microstrip value otherwise.
 
@@ -214,7 +210,7 @@ def effective_permittivity(spec: FilterSpec) -> float:
 
 def skew_ps(length_mm: float, er_eff: float) -> float:
     """Delay of ``length_mm`` of line at ``er_eff``: t = L * sqrt(er_eff) / c."""
-    return abs(length_mm) * 1e-3 * math.sqrt(er_eff) / 299_792_458.0 * 1e12
+    return abs(length_mm) * 1e-3 * math.sqrt(er_eff) / C0 * 1e12
 
 
 def with_copper(layout: Layout, traces: tuple[Trace, ...] | None = None,

@@ -41,6 +41,31 @@ def unfinished_name(name: str) -> str:
     return f"{name}{UNFINISHED}{os.getpid()}"
 
 
+def move_into_place(staged: Path, final: Path) -> None:
+    """Give a staged file the usual permissions and rename it onto its final name (atomic on one file system)."""
+    os.chmod(staged, 0o644)
+    os.replace(staged, final)
+
+
+@contextmanager
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """Yield a staged path beside ``path``; move it onto ``path`` only if the block succeeds.
+
+    For one file outside a run's ``StagedOutputs``.  A path that is already a staged output is written directly:
+    the run that staged it moves it into place.
+    """
+    path = Path(path)
+    if UNFINISHED in path.name:
+        yield path
+        return
+    tmp_path = path.with_name(unfinished_name(path.name))
+    try:
+        yield tmp_path
+        move_into_place(tmp_path, path)
+    finally:
+        tmp_path.unlink(missing_ok=True)
+
+
 def refuse_inputs(option: str, outputs: Iterable[Path], inputs: Iterable[Path]) -> None:
     """Raise when an output would be one of the inputs: same resolved path (symlinks and ``..`` followed) or, when
     both exist, the same file (a hard link).  The one check every command runs before it writes."""
@@ -217,8 +242,7 @@ class StagedOutputs:
             if kind is None:
                 for final, tmp in self.staged.items():
                     with self._naming(final):
-                        os.chmod(tmp, 0o644)
-                        os.replace(tmp, final)
+                        move_into_place(tmp, final)
         finally:
             for tmp in self.staged.values():
                 tmp.unlink(missing_ok=True)

@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import math
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
 from typing import Sequence
 
@@ -16,6 +17,7 @@ import numpy as np
 
 from . import CAUTION
 from .errors import EbgError
+from .units import round_hz
 
 DEFAULT_THRESHOLD_DB = -10.0
 """Stopband threshold: about 10 dB of common-mode rejection is what typical practice asks for (common practice)."""
@@ -23,6 +25,7 @@ DB_FLOOR = -300.0
 """dB value given to |S| = 0 (an ideal notch exactly on a grid point), so every number stays finite."""
 HZ_DECIMALS = 0
 """Frequencies in result files are rounded to 1 Hz."""
+_hz = partial(round_hz, decimals=HZ_DECIMALS)
 DB_DECIMALS = 4
 """dB values in result files are rounded to 0.0001 dB."""
 RESPONSE_CAUTION = ("S-parameters from a simulation or a model are estimates of one drawn geometry; " + CAUTION)
@@ -302,9 +305,6 @@ def _intersect(a: list[tuple[float, float]], b: list[tuple[float, float]]) -> li
             j += 1
     return out
 
-
-def _hz(value: float) -> float:
-    return float(round(float(value), HZ_DECIMALS))
 
 
 def _db(value: float) -> float:

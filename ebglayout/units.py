@@ -16,6 +16,11 @@ GRID_MM = 1e-6
 _NUMBER_WITH_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([A-Za-z/]*)\s*$")
 
 
+def round_hz(value: float, decimals: int = -3) -> float:
+    """A frequency as reports store it: rounded to 1 kHz (estimates), or to 1 Hz with ``decimals=0`` (responses)."""
+    return float(round(value, decimals))
+
+
 def snap(value: float) -> float:
     """Round a length in mm to the 1 nm grid (idempotent)."""
     return round(value / GRID_MM) * GRID_MM if value else 0.0

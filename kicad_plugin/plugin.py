@@ -73,11 +73,10 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
         if fp is None:
             raise RuntimeError("KiCad could not load the generated footprint")
     priority = workflow.zone_priority_for(placement.board_text, layout, layout.spec.plane_net)
-    from ebglayout.outputs import unfinished_name
+    from ebglayout.outputs import atomic_path
 
-    staged = rules_path.with_name(unfinished_name(rules_path.name))
-    staged.write_text(placement.rules_text, encoding="utf-8")
-    try:
+    with atomic_path(rules_path) as staged:  # the rules file changes only if the footprint was added
+        staged.write_text(placement.rules_text, encoding="utf-8")
         board.Add(fp)
         try:
             _set_up(board, fp, placed.reference, layout, footprint.footprint_origin(layout), priority)
@@ -87,10 +86,6 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
             # unreadable from Python (seen with 6.0.11), so the removed footprint is left unfreed instead.
             fp.thisown = 0
             raise
-    except Exception:
-        staged.unlink(missing_ok=True)
-        raise
-    os.replace(staged, rules_path)
     compat.fill_all_zones(board)
     compat.refresh()
     checks = placed.result.checks
@@ -158,11 +153,12 @@ class PlaceFilterAction(pcbnew.ActionPlugin):
         except Exception as err:  # shown to the user instead of a traceback in KiCad's console
             _message(str(err), "ebglayout: nothing placed")
             return
+        from ebglayout import CAUTION
+
         risks = "\n".join(summary["risks"]) or "none"
         _message(f"{summary['reference']} ({summary['filter']}) placed under {summary['pair']}: "
                  f"{summary['errors']} error(s), {summary['warnings']} warning(s).\n\n{summary['table']}\n\n"
-                 f"KiCad fill risks: {risks}\n\nThe tool draws, checks and estimates; compliance rests on field solves, "
-                 "measurements, the applicable EMC standards and the responsible engineer.")
+                 f"KiCad fill risks: {risks}\n\n{CAUTION}.")
 
 
 class RecheckAction(pcbnew.ActionPlugin):

@@ -3,7 +3,7 @@
 ``board_text`` writes a small KiCad 6 board by hand: 4 or 6 copper layers, a GND
 plane zone on each cut layer (larger than the filter), one GND through-hole pad
 as island anchor, an Edge.Cuts outline.  ``fill_board`` loads a saved board with
-pcbnew, fills board zones and footprint copper zones (fact sheet 3.3) and returns
+pcbnew, fills board zones and footprint copper zones (pcbnew's ZONE_FILLER) and returns
 the copper per layer as shapely geometry; ``ray_gap`` and ``slot_report``
 compare it with the engine's polygons.
 """

@@ -112,16 +112,35 @@ def test_estimate_size_refine(capsys):
 
 
 def test_read_only_output_folder_leaves_nothing(tmp_path, capsys):
-    if os.geteuid() == 0:
-        pytest.skip("root ignores folder permissions; the injected-failure test covers this case")
-    out = tmp_path / "ro"
-    out.mkdir()
-    out.chmod(0o500)
-    try:
-        assert main(["build", str(SAMPLE_SPECS[0]), "--out", str(out)]) == 2
+    """A folder the user may not write: exit 2, one line naming the output, nothing left in it.
+
+    Root ignores folder permissions, so as root (as in CI) the build runs as the unprivileged user nobody
+    (util-linux ``setpriv``) on a root-owned folder, which nobody may read but not write.
+    """
+    if os.geteuid() != 0:
+        out = tmp_path / "ro"
+        out.mkdir()
+        out.chmod(0o500)
+        try:
+            assert main(["build", str(SAMPLE_SPECS[0]), "--out", str(out)]) == 2
+            assert list(out.iterdir()) == []
+        finally:
+            out.chmod(0o700)
+        return
+    if shutil.which("setpriv") is None:
+        pytest.skip("running as root without util-linux setpriv: cannot drop to an unprivileged user")
+    import tempfile
+
+    with tempfile.TemporaryDirectory(prefix="ebglayout-ro-") as folder:
+        os.chmod(folder, 0o755)  # nobody may enter it and read, not write
+        out = Path(folder) / "out"
+        out.mkdir(mode=0o755)
+        done = subprocess.run(["setpriv", "--reuid=65534", "--regid=65534", "--clear-groups", "env", f"HOME={folder}",
+                               sys.executable, "-m", "ebglayout", "build", str(SAMPLE_SPECS[0]), "--out", str(out)],
+                              capture_output=True, text=True, cwd=ROOT, check=False)
+        assert done.returncode == 2, done.stderr
+        assert "Permission denied" in done.stderr and len(done.stderr.strip().splitlines()) == 1
         assert list(out.iterdir()) == []
-    finally:
-        out.chmod(0o700)
 
 
 def test_failure_inside_a_writer_leaves_no_partial_file(tmp_path, monkeypatch, capsys):

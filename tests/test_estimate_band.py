@@ -1,7 +1,7 @@
 """Estimate of built layouts: sizing round trips, the tolerance band, the JSON and the table.
 
 References outside ebglayout: the cavity model's f10 = c / (2 a sqrt(er)) and its 1/sqrt(er)
-scaling (D. M. Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch),
+scaling (C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory),
 the lumped resonance f = 1 / (2 pi sqrt(L C)) with C = e0 er A / h (so f ~ sqrt(h / er)),
 evaluated by hand in the assertions below.
 """

@@ -2,7 +2,7 @@
 
 References used here, all outside ebglayout:
 - the rectangular-patch cavity formula f_mn = c/(2 sqrt(er)) sqrt((m/a)^2 + (n/b)^2)
-  (D. M. Pozar, Microwave Engineering, 4th ed.), evaluated by hand;
+  (C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, from memory), evaluated by hand;
 - Neumann eigenvalues of the L-shaped domain [-1,1]^2 minus a quadrant, published values
   from memory: 1.4756, 3.5340, pi^2;
 - a linear-triangle (P1) finite-element discretisation written in this file

@@ -5,7 +5,8 @@ References outside ebglayout:
   impedance Z0 = eta h / (b sqrt(er)), so Z11 = -j Z0 cot(beta a) and Z21 = -j Z0 / sin(beta a) (D. M. Pozar,
   Microwave Engineering, 4th ed., sec. 2.3 and 4.2: an open-ended line and the line's Z-matrix; from memory);
 - the parallel-plate capacitor C = e0 er A / h for the cavity's low-frequency port impedance 1 / (j w C);
-- the cavity model's modes, f_mn = c sqrt((m/a)^2 + (n/b)^2) / (2 sqrt(er)) (Pozar, cavity model of the patch);
+- the cavity model's modes, f_mn = c sqrt((m/a)^2 + (n/b)^2) / (2 sqrt(er)) (Balanis,
+  Antenna Theory, 3rd ed., sec. 14.2.2, from memory);
 - reciprocity (S = S^T) and passivity (I - S^H S positive semi-definite) of any network of passive reciprocal
   parts (Pozar, sec. 4.3);
 - a matched uniform line transmits |S21| = exp(-alpha l) (Pozar, sec. 2.7), with alpha from the named forms;

@@ -2,8 +2,9 @@
 guaranteed stopband is what every corner rejects.
 
 References outside ebglayout:
-- the cavity model's modes scale as 1 / sqrt(er) and fall as the patch grows (Pozar, Microwave Engineering,
-  4th ed., cavity model of the rectangular patch), so a higher er and an under-etched (larger) patch notch lower;
+- the cavity model's modes scale as 1 / sqrt(er) and fall as the patch grows (C. A. Balanis, Antenna
+  Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory), so a higher er and an
+  under-etched (larger) patch notch lower;
 - scikit-rf computes the mixed-mode terms (ebglayout.sparams); ebglayout.response reads the curves.
 """
 from __future__ import annotations

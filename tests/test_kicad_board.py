@@ -18,6 +18,7 @@ import pytest
 
 from ebglayout.errors import BoardError, EbgError
 from ebglayout.kicad.board import parse_board, read_board
+from ebglayout.kicad.board_zones import KEEPOUT_DEFAULT_ALLOWED
 from ebglayout.kicad.sexpr import MAX_DEPTH, parse_text, scan
 
 HERE = Path(__file__).resolve().parent
@@ -146,6 +147,18 @@ def test_board_matches_pcbnew(pcbnew, path):
     assert board.outline.area == pytest.approx(theirs["outline_area"], rel=1e-4)
     assert not board.warnings
 
+
+
+def test_keepout_flags_left_out_are_read_as_kicad_reads_them(pcbnew, tmp_path):
+    """A rule area whose (keepout) names no flag: our defaults (KEEPOUT_DEFAULT_ALLOWED) against pcbnew's reading."""
+    text = SAMPLE.read_text(encoding="utf-8")
+    flags = "(keepout (tracks allowed) (vias allowed) (pads allowed) (copperpour not_allowed) (footprints allowed))"
+    assert text.count(flags) == 1
+    path = tmp_path / "keepout_defaults.kicad_pcb"
+    path.write_text(text.replace(flags, "(keepout)"), encoding="utf-8")
+    board = read_board(path)
+    compare_views(our_view(board), pcbnew_view(pcbnew, path))
+    assert next(z for z in board.zones if z.is_rule_area).keepout == KEEPOUT_DEFAULT_ALLOWED
 
 def test_pad_positions_without_parsing_footprints(pcbnew):
     """The fast pad scan agrees with the parsed footprints and with pcbnew."""

@@ -21,7 +21,11 @@ from ebglayout.kicad.insert import fill_risks, insert_footprints, plane_net, zon
 from ebglayout.kicad.rules import merge_rules, rules_text
 from kicad_rig import Rig, board_text, drc_findings, fill_board, shifted_layout, slot_report
 
-TOL = 0.005
+TOL = 0.001
+"""Slot widths, corner gaps and bridge widths of KiCad's fill match the design within 1 um (measured with 6.0.11:
+0 um, to float noise, where patches are copper polygons)."""
+ZONE_FILL_TOL = 0.002
+"""Slot widths where bridged patches are copper zones that KiCad fills itself: measured 1.5 um with 6.0.11."""
 
 
 def board_only_bits(pcbnew):
@@ -71,15 +75,16 @@ def assert_exact(layout, filled, layer):
     r = slot_report(layout, filled[layer], layer)
     slot = layout.spec.slot
     assert r["symdiff"] <= 0.01 * r["slot_area"], f"{layer}: symmetric difference {r['symdiff']:.5f} mm2"
+    tol = ZONE_FILL_TOL if layout.spec.style == "bridged" else TOL
     worst = max(r["width_errors"])
-    assert worst[0] <= TOL, f"{layer}: width off by {worst[0]:.4f} mm at {worst[2]}"
+    assert worst[0] <= tol, f"{layer}: width off by {worst[0]:.4f} mm at {worst[2]}"
     full = [w for w in r["width_errors"] if abs(w[1] - slot) < 1e-6]
     assert len(full) >= len(r["width_errors"]) // 2, "most probes should cross a full slot width"
     diagonal = [c for c in r["corner_errors"] if abs(c[1] - slot * math.sqrt(2)) < 1e-6]
     assert len(diagonal) >= 4 * len(layout.cells), "every patch has four outer corners"
     for _, _, got, where in diagonal:
         sharp = slot * math.sqrt(2)
-        assert abs(got - sharp) <= TOL, f"{layer}: 45-degree gap {got:.4f} at {where} (sharp: {sharp:.4f})"
+        assert abs(got - sharp) <= tol, f"{layer}: 45-degree gap {got:.4f} at {where} (sharp: {sharp:.4f})"
     return r
 
 

@@ -1,8 +1,9 @@
 """Footprint text in the KiCad 6-9 dialects, rule merging and board insertion.
 
 KiCad 6's own footprint loader (``pcbnew.FootprintLoad``) is the outside check
-for the 6 dialect; the 7/8/9 dialects are checked at text level only (tokens
-from KiCad's file-format changes, fact sheet 1.3), since only KiCad 6 is here.
+for the 6 dialect.  On a host with KiCad 6.0.11 the 7/8/9 dialects are checked at text level (tokens from KiCad's
+file-format changes) and must be refused by 6.0.11; the KiCad 9 root (tools/kicad9-root.sh) runs the same tests
+with 9.0.2, which loads all four dialects.
 """
 from __future__ import annotations
 
@@ -16,7 +17,7 @@ from shapely.ops import unary_union
 from ebglayout.errors import BoardError
 from ebglayout.kicad.footprint import (BRIDGE_ZONE_MIN_WIDTH, KICAD6, KICAD7, KICAD8, KICAD9, board_footprint_text,
                                        footprint_origin, footprint_text, hole_free)
-from ebglayout.kicad.insert import board_version, insert_footprints, plane_net, set_plane_net
+from ebglayout.kicad.insert import board_version, insert_footprints, plane_net
 from ebglayout.kicad.rules import RULE_NAME, has_rule, merge_rules, rules_text
 from kicad_rig import Rig, board_text, is_polygon_graphic, poly_set_to_shapely
 
@@ -220,7 +221,6 @@ def test_insert_and_nets(sample_layouts):
     with pytest.raises(BoardError, match="net 'AGND' not found"):
         plane_net(base, "AGND")
     bare = board_footprint_text(layout)
-    assert set_plane_net(bare, 1, "GND") == board_footprint_text(layout, plane_net=(1, "GND"))
     two = insert_footprints(base, [bare, board_footprint_text(layout, reference="FIL2", at=(50, 50))])
     assert two.startswith(base[:base.rstrip().rfind(")")]) and two.endswith(")\n") and balanced(two)
     one_line = "(kicad_pcb (version 20211014) (net 0 \"\"))"

@@ -5,6 +5,8 @@ Seeded (derandomize) and bounded so CI is reproducible and quick.
 from __future__ import annotations
 
 import math
+import sys
+from collections import Counter
 
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -68,3 +70,30 @@ def test_engine_builds_valid_geometry_or_refuses(data):
     report = run_checks(layout)
     assert report.crossings["P"] == report.crossings["N"]
     assert abs(report.min_slot_width - spec.slot) < 1e-5
+
+
+MIN_BUILT_SHARE = 0.25
+"""Of each style's random specs at least this share must build, so the invariants above are really exercised
+(with this seed: straight 26 of 46, bridged 20 of 51, folded 22 of 53 build)."""
+
+
+def test_enough_random_specs_build_per_style(monkeypatch):
+    """Runs the property test above again, counting per style the specs drawn and the layouts built."""
+    drawn: Counter = Counter()
+    built: Counter = Counter()
+    read, build = spec_from_dict, build_layout
+
+    def counting_spec(data):
+        drawn[data["cut"]["style"]] += 1
+        return read(data)
+
+    def counting_build(spec):
+        layout = build(spec)
+        built[spec.style] += 1
+        return layout
+
+    monkeypatch.setattr(sys.modules[__name__], "spec_from_dict", counting_spec)
+    monkeypatch.setattr(sys.modules[__name__], "build_layout", counting_build)
+    test_engine_builds_valid_geometry_or_refuses()
+    for style in ("straight", "bridged", "folded"):
+        assert drawn[style] and built[style] >= MIN_BUILT_SHARE * drawn[style], (style, built[style], drawn[style])

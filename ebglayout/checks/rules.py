@@ -16,12 +16,11 @@ from shapely.ops import unary_union
 
 from ..crossing import TOUCH_MM, Crossing
 from ..layout import Layout, effective_permittivity, skew_ps
+from ..physics import tm10_hz
 from ..spec import FilterSpec, TrackObstacle, ViaObstacle
 from ..units import format_length
 from . import Finding
 from .widths import width_check
-
-C0 = 299_792_458.0
 
 
 @dataclass(frozen=True)
@@ -85,8 +84,8 @@ RULES: tuple[Rule, ...] = (
          "(light check without the model: target within target_tolerance of the cells' notch spread)",
          "target_margin = 0.5 %",
          "circuit model: coupled lines (Hammerstad-Jensen, Kirschning-Jansen, Cohn) and the cavity's modal expansion "
-         "(Okoshi); light check: cavity model of a rectangular patch (Pozar, Microwave Engineering, 4th ed., "
-         "sec. 9.7, from memory)"),
+         "(Okoshi); light check: cavity model of a rectangular patch (C. A. Balanis, Antenna Theory, 3rd ed., "
+         "sec. 14.2.2, from memory)"),
 )
 RULE_BY_ID = {r.id: r for r in RULES}
 
@@ -584,7 +583,7 @@ def notch_target(layout: Layout, ctx: CheckContext) -> RuleResult:
         rect = cell.patch.minimum_rotated_rectangle
         xy = np.asarray(rect.exterior.coords)
         longest = max(np.linalg.norm(xy[1] - xy[0]), np.linalg.norm(xy[2] - xy[1]))
-        f10 = C0 / (2 * longest * 1e-3 * math.sqrt(spec.er))
+        f10 = tm10_hz(longest, spec.er)
         off = 100 * (f10 / spec.target_hz - 1)
         r.see(abs(off), lower_is_worse=False)
         if abs(off) > 100 * spec.target_tolerance:

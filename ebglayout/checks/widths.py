@@ -48,11 +48,6 @@ PAIR_BLOCK = 1 << 20
 """Edge pairs measured per numpy block: bounds the memory of a polygon with thousands of edges."""
 
 
-def facing_widths(polygon) -> list[Narrow]:
-    """Every facing-edge width of one polygon (one entry per facing edge pair, smallest first)."""
-    return _narrows([polygon])[0]
-
-
 def _narrows(polygons: list, below: float | None = None) -> list[list[Narrow]]:
     """Facing-edge widths of each polygon, all of them or only those under ``below``, smallest first.
 
@@ -197,14 +192,6 @@ def width_check(geometry, limit: float, tolerance: float = 1e-6) -> tuple[Narrow
             todo = [k for k in todo if best[1].width >= bound - 1e-6]
         bound *= 2
     return (best[1] if best else None), below
-
-
-def narrower_than(geometry, limit: float, tolerance: float = 1e-6) -> list[Narrow]:
-    """Places narrower than ``limit`` (minus a grid tolerance), one per distinct location."""
-    polys = list(getattr(geometry, "geoms", [geometry]))
-    if not polys:
-        return []
-    return _distinct(n for narrows in _narrows(polys, below=limit - tolerance) for n in narrows)
 
 
 def _distinct(narrows) -> list[Narrow]:

@@ -36,7 +36,7 @@ from shapely import affinity
 from shapely.geometry import Polygon
 
 from ..layout import Layout, PlacedCell
-from ..units import GRID_MM, format_hz, format_length
+from ..units import GRID_MM, format_hz, format_length, round_hz
 from .cavity import polygon_modes, rect_modes
 from .lumped import lc_notch
 
@@ -75,10 +75,10 @@ class CellEstimate:
 
     def to_json(self) -> dict:
         out = {"index": self.index,
-               "modes": [{"f_hz": _hz(m.f_hz), "method": m.method} for m in self.modes]}
+               "modes": [{"f_hz": round_hz(m.f_hz), "method": m.method} for m in self.modes]}
         if self.lc_f_hz is not None:
-            out["lc_f_hz"] = _hz(self.lc_f_hz)
-        out["notch_hz"] = _hz(self.notch_hz)
+            out["lc_f_hz"] = round_hz(self.lc_f_hz)
+        out["notch_hz"] = round_hz(self.notch_hz)
         out["governs"] = self.governs
         if self.notch_label:
             out["notch_mode"] = self.notch_label
@@ -120,15 +120,16 @@ class Estimate:
         """JSON-ready dict with stable keys and values rounded to 1 kHz / 1 nm."""
         out: dict = {
             "cells": [c.to_json() for c in self.cells],
-            "notch_spread": {"low_hz": _hz(self.low_hz), "high_hz": _hz(self.high_hz)},
+            "notch_spread": {"low_hz": round_hz(self.low_hz), "high_hz": round_hz(self.high_hz)},
         }
         if self.target_hz is not None:
-            out["target_hz"] = _hz(self.target_hz)
+            out["target_hz"] = round_hz(self.target_hz)
         out["target_in_spread"] = self.target_in_spread
         out["sweep"] = {
             "er": _num(self.er), "er_tolerance": _num(self.er_tolerance),
             "h_mm": _num(self.h), "h_tolerance": _num(self.h_tolerance),
-            "corners": [{"er": _num(c.er), "h_mm": _num(c.h), "low_hz": _hz(c.low_hz), "high_hz": _hz(c.high_hz)}
+            "corners": [{"er": _num(c.er), "h_mm": _num(c.h), "low_hz": round_hz(c.low_hz),
+                         "high_hz": round_hz(c.high_hz)}
                         for c in self.corners],
         }
         out["caution"] = CAUTION
@@ -289,9 +290,6 @@ def format_rejection(data: dict, units: str = "mm") -> list[str]:
 def _ratios(tolerance: float) -> tuple[float, ...]:
     return tuple(sorted({1.0 - tolerance, 1.0, 1.0 + tolerance}))
 
-
-def _hz(value: float) -> float:
-    return float(round(value, -3))
 
 
 def _num(value: float) -> float:

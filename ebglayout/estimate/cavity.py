@@ -2,8 +2,8 @@
 
 The patch and the plane below it form a thin cavity whose side walls are, to
 first order, magnetic walls (the cavity model of the rectangular microstrip
-patch; D. M. Pozar, Microwave Engineering, 4th ed., and C. A. Balanis, Antenna
-Theory, 3rd ed., ch. 14).  For a cavity much thinner than a wavelength only the
+patch; C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, from memory).
+For a cavity much thinner than a wavelength only the
 TMmn modes with no field variation across the thickness matter, and their
 field E_z obeys the 2D Helmholtz equation -lap(u) = k^2 u on the patch shape
 with the Neumann condition du/dn = 0 on its edge.  The resonance is then
@@ -25,11 +25,8 @@ from shapely import affinity
 from shapely.geometry import LineString, MultiPolygon, Polygon
 
 from ..errors import EbgError
-
-C0 = 299_792_458.0
-"""Speed of light in vacuum, m/s (exact, SI definition)."""
-MU0 = 1.25663706212e-6
-"""Vacuum permeability, H/m (CODATA 2018)."""
+from ..errors import check_positive as _check_positive
+from ..physics import C0, MU0
 
 _MIN_CELLS = 8
 _MAX_CELLS = 400
@@ -39,7 +36,7 @@ def rect_modes(a: float, b: float, er: float, n: int = 3) -> list[tuple[float, i
     """Lowest ``n`` TMmn resonances (f_hz, m, n) of an a x b mm patch with magnetic side walls.
 
     f_mn = c / (2 sqrt(er)) * sqrt((m/a)^2 + (n/b)^2), (m, n) != (0, 0)
-    (Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch).
+    (C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory).
     Ties are ordered by (m, n).
     """
     _check_positive(a=a, b=b, er=er)
@@ -112,11 +109,6 @@ def _as_polygon(geom) -> Polygon:
         raise EbgError("patch polygon must be one valid, non-empty polygon")
     return geom
 
-
-def _check_positive(**values: float) -> None:
-    for key, value in values.items():
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
 
 
 def _grid_step(local: Polygon, n: int, accuracy: float) -> float:

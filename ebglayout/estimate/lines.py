@@ -27,9 +27,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import EbgError
+from ..errors import check_positive as _check
+from ..physics import C0, MU0
 from ..stackup import Stackup
-from .cavity import C0, MU0
 
 ETA0 = 376.730313668
 """Impedance of free space, ohm (CODATA 2018)."""
@@ -159,8 +159,3 @@ def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float) -> CoupledL
         even, odd = microstrip_coupled(width_mm / h, spacing_mm / h, er)
     return CoupledLines(even, odd, er, tan_d, width_mm, stackup.stripline)
 
-
-def _check(**values: float) -> None:
-    for key, value in values.items():
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")

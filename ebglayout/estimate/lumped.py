@@ -20,37 +20,22 @@ import numpy as np
 from shapely.geometry import Polygon
 
 from ..errors import EbgError
+from ..errors import check_positive as _positive
+from ..physics import EPS0
 
-EPS0 = 8.8541878128e-12
-"""Vacuum permittivity, F/m (CODATA 2018)."""
 MU0_OVER_2PI = 2e-7
 """mu0 / (2 pi) in H/m (the classical value 4 pi 1e-7 H/m; the SI 2019 change is below 1e-9)."""
 COPPER_1OZ_MM = 0.035
 """Thickness of 1 oz/ft^2 copper foil, mm (common practice)."""
 
 
-def plate_capacitance(area_mm2: float, h_mm: float, er: float, perimeter_mm: float | None = None) -> float:
-    """Capacitance (F) of a patch of ``area_mm2`` at ``h_mm`` over a plane, dielectric ``er``.
+def plate_capacitance(area_mm2: float, h_mm: float, er: float) -> float:
+    """Capacitance (F) of a patch of ``area_mm2`` at ``h_mm`` over a plane, dielectric ``er``: C = e0 er A / h.
 
-    Parallel plate: C = e0 er A / h.  With ``perimeter_mm`` an edge (fringing)
-    term is added per unit length of perimeter, taken from Hammerstad's
-    wide-strip microstrip formula for W/h >= 1 as given in Pozar, Microwave
-    Engineering, 4th ed., sec. 3.8 (Z0 of microstrip; section number from
-    memory), since C' = sqrt(er) / (c Z0): in a uniform dielectric a strip of width W
-    has C' = e0 er [W/h + 1.393 + 0.667 ln(W/h + 1.444)], i.e. an excess of
-    e0 er [1.393 + 0.667 ln(W/h + 1.444)] for its two edges.  Here W = 4 A / P
-    (the side of a square patch) and the whole perimeter counts as edge; the
-    dielectric is taken to fill the fringe region, which over-counts the part
-    of the fringe field in air above the cut.
+    The plain parallel plate without edge fringing, which puts the LC estimate slightly high.
     """
     _positive(area_mm2=area_mm2, h_mm=h_mm, er=er)
-    c = EPS0 * er * (area_mm2 * 1e-6) / (h_mm * 1e-3)
-    if perimeter_mm is not None:
-        _positive(perimeter_mm=perimeter_mm)
-        w_over_h = 4 * area_mm2 / perimeter_mm / h_mm
-        per_length = EPS0 * er * (1.393 + 0.667 * math.log(w_over_h + 1.444)) / 2
-        c += per_length * perimeter_mm * 1e-3
-    return c
+    return EPS0 * er * (area_mm2 * 1e-6) / (h_mm * 1e-3)
 
 
 def strip_inductance(length_mm: float, width_mm: float, thickness_mm: float = COPPER_1OZ_MM) -> float:
@@ -85,11 +70,9 @@ def bridge_width(bridge: Polygon, bridge_length: float) -> float:
     return s1 if abs(s2 - bridge_length) <= abs(s1 - bridge_length) else s2
 
 
-def cell_inductance(bridges: Sequence[Polygon], bridge_length: float,
-                    thickness_mm: float = COPPER_1OZ_MM) -> float:
-    """Inductance (H) of a cell's bridges in parallel (mutual coupling ignored)."""
-    return parallel_inductance([strip_inductance(bridge_length, bridge_width(b, bridge_length), thickness_mm)
-                                for b in bridges])
+def cell_inductance(bridges: Sequence[Polygon], bridge_length: float) -> float:
+    """Inductance (H) of a cell's bridges (1 oz copper) in parallel (mutual coupling ignored)."""
+    return parallel_inductance([strip_inductance(bridge_length, bridge_width(b, bridge_length)) for b in bridges])
 
 
 def lc_frequency(l_h: float, c_f: float) -> float:
@@ -97,20 +80,8 @@ def lc_frequency(l_h: float, c_f: float) -> float:
     return 1.0 / (2 * math.pi * math.sqrt(l_h * c_f))
 
 
-def lc_notch(patch_polygon: Polygon, bridges: Sequence[Polygon], h: float, er: float, bridge_length: float,
-             *, fringing: bool = False, thickness_mm: float = COPPER_1OZ_MM) -> float:
-    """LC resonance (Hz) of a bridged cell: C from the drawn patch area, L from its bridges in parallel.
-
-    ``fringing`` adds the edge term of ``plate_capacitance`` (off by default:
-    the plain parallel plate, which puts the estimate slightly high).
-    """
+def lc_notch(patch_polygon: Polygon, bridges: Sequence[Polygon], h: float, er: float, bridge_length: float) -> float:
+    """LC resonance (Hz) of a bridged cell: C from the drawn patch area, L from its bridges in parallel."""
     _positive(h=h, er=er, bridge_length=bridge_length)
-    perimeter = patch_polygon.length if fringing else None
-    c = plate_capacitance(patch_polygon.area, h, er, perimeter)
-    return lc_frequency(cell_inductance(bridges, bridge_length, thickness_mm), c)
+    return lc_frequency(cell_inductance(bridges, bridge_length), plate_capacitance(patch_polygon.area, h, er))
 
-
-def _positive(**values: float) -> None:
-    for key, value in values.items():
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")

@@ -1,7 +1,7 @@
 """First-pass patch size for a target notch, and the two-stage correction after a field solve.
 
 Rectangles invert the cavity model's fundamental, f10 = c / (2 a sqrt(er))
-(Pozar, Microwave Engineering, 4th ed., cavity model of the rectangular patch),
+(C. A. Balanis, Antenna Theory, 3rd ed., sec. 14.2.2, cavity model of the rectangular patch, from memory),
 for the patch's long side.  Bridged cells are sized by solving the same model
 ``band.estimate_cell`` uses (lower of the LC resonance and the lowest cavity
 mode of the drawn, pocketed patch) for the patch scale with Brent's method
@@ -18,11 +18,13 @@ import numpy as np
 from ..cells.bridged import bridged_cell
 from ..cells.shape import rectangle
 from ..errors import EbgError, SpecError
+from ..errors import check_positive as _check
 from ..layout import PlacedCell
+from ..physics import tm10_hz, tm10_length_mm
 from ..spec import STYLES, FilterSpec
 from ..units import format_length, spec_number
+from ..units import round_hz as _hz
 from .band import CAUTION, estimate_cell
-from .cavity import C0
 
 DEFAULT_ASPECT = 0.5
 """Default across / along ratio of a new patch: the fundamental then runs along the pair."""
@@ -56,7 +58,7 @@ def size_for_target(target_hz: float, er: float, style: str = "straight", aspect
             raise SpecError("cut.bridge", bridge, f"only the bridged style takes bridges (style is {style!r})")
         # the common mode excites the along-the-pair mode TM10 (the across mode is odd about the pair), so the
         # along size is set by the target whatever the aspect
-        along = C0 / (2 * target_hz * math.sqrt(er)) * 1e3
+        along = tm10_length_mm(target_hz, er)
         result = estimate_cell(_cell(dims(along), None), er, 1.0, None)
         return _result(style, target_hz, er, dims(along), result)
     if h is None or bridge is None:
@@ -157,14 +159,6 @@ def _result(style: str, target_hz: float, er: float, size: tuple[float, float], 
             "notch_hz": _hz(cell.notch_hz), "governs": cell.governs, "caution": CAUTION}
 
 
-def _check(**values: float) -> None:
-    for key, value in values.items():
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
-            raise EbgError(f"{key} = {value!r}: must be a finite number > 0")
-
-
-def _hz(value: float) -> float:
-    return float(round(value, -3))
 
 
 def format_sizing(result: dict, units: str = "mm") -> str:
@@ -183,7 +177,7 @@ def format_sizing(result: dict, units: str = "mm") -> str:
                      f"{format_length(result['pair'][0], units)} / {format_length(result['pair'][1], units)}: notch "
                      f"{result['model_hz'] / 1e9:.4g} GHz (the cell formula gives this size {result['formula_hz'] / 1e9:.4g} GHz); "
                      "the cell passes the checks")
-        across_hz = C0 / (2 * result["patch"][1] * 1e-3 * math.sqrt(result["er"]))
+        across_hz = tm10_hz(result["patch"][1], result["er"])
         if result["patch"][1] > result["patch"][0]:
             lines.append(f"note: the patch is wider across than along; its across mode ({across_hz / 1e9:.4g} GHz) "
                          "is not excited by the common mode but costs the differential signal there (see Sdd21 in "

@@ -2,19 +2,16 @@
 
 Every writer reads a built ``Layout`` and never re-derives geometry, so a cut
 lands exactly under its pair.  Each file is written atomically: to a temporary
-file in the same folder, then moved into place, so an error leaves no partial
+file in the same folder, then moved into place (``outputs.atomic_path``), so an error leaves no partial
 file behind.  The submodules are imported on demand, so importing this package
 pulls in neither ezdxf, gdstk nor Pillow.
 """
 from __future__ import annotations
 
 import math
-import os
-from contextlib import contextmanager
-from pathlib import Path
-from typing import Iterator
 
 from .. import CAUTION
+from ..outputs import atomic_path
 
 EXTENSIONS = ("dxf", "gds", "svg", "png")
 
@@ -47,28 +44,6 @@ class CellFrame:
         pts = [self.local(x, y) for x, y in poly.exterior.coords]
         us, vs = [p[0] for p in pts], [p[1] for p in pts]
         return (min(us), min(vs), max(us), max(vs))
-
-
-@contextmanager
-def atomic_path(path: str | Path) -> Iterator[Path]:
-    """Yield a staged path beside ``path``; move it onto ``path`` only if the block succeeds.
-
-    A path that is already a staged output (see ``ebglayout.outputs``) is written directly: the run that staged
-    it moves it into place.
-    """
-    from ..outputs import UNFINISHED, unfinished_name
-
-    path = Path(path)
-    if UNFINISHED in path.name:
-        yield path
-        return
-    tmp_path = path.with_name(unfinished_name(path.name))
-    try:
-        yield tmp_path
-        os.chmod(tmp_path, 0o644)
-        os.replace(tmp_path, path)
-    finally:
-        tmp_path.unlink(missing_ok=True)
 
 
 __all__ = ["CAUTION", "EXTENSIONS", "CellFrame", "atomic_path"]

@@ -23,9 +23,9 @@ from shapely.ops import unary_union
 
 from ..errors import EbgError
 from ..layout import Layout
+from ..physics import C0, EPS0
 from ..stackup import Stackup
 
-EPS0 = 8.8541878128e-12
 PORT_PAD_CELLS = 5.0
 """Plane and dielectric continue this many pair heights beyond each port, so no port sits in the absorbing wall."""
 MIN_LEAD_MM = 0.3
@@ -389,8 +389,7 @@ def build_mesh(model: Model, slot: MultiPolygon, er_max: float, z_levels: dict) 
     """Mesh lines: on every copper edge along x or y, thirds rule across each trace's long edges, a uniform fine
     mesh over slanted edges (45-degree jogs, arcs), graded (ratio <= 1.5) up to a wavelength-based largest cell."""
     p = model.preset
-    c0 = 299792458.0
-    max_cell = c0 / model.f_max_hz / math.sqrt(er_max) * 1e3 * p.max_cell_wavelengths
+    max_cell = C0 / model.f_max_hz / math.sqrt(er_max) * 1e3 * p.max_cell_wavelengths
     fine = model.slot_width / p.slot_cells
     trace_step = model.trace_width / p.trace_cells
     x0, x1, y0, y1, z0, z1 = model.domain

@@ -22,9 +22,9 @@ from xml.sax.saxutils import quoteattr
 import numpy as np
 
 from ..errors import EbgError
+from ..physics import C0
 from .model import Model
 
-C0 = 299792458.0
 GROWTH_DB = 10.0
 """Field energy rising this far above its lowest value (itself this far below the peak) stops the run."""
 INSTALL_HINT = "apt-get install openems python3-openems (Debian/Ubuntu)"

@@ -14,7 +14,7 @@ from shapely.geometry import Polygon
 
 from ..errors import BoardError, show
 from ..layout import Layout
-from .board import zone_number
+from .board_zones import zone_number
 from .footprint import DIALECTS, KICAD6, KICAD9, area_name
 from .rules import RULE_NAME, has_rule
 from .sexpr import error_in_text
@@ -63,21 +63,6 @@ def plane_net(board_text: str, name: str, source: str = "<board>") -> tuple[int,
                 return int(form[1]), name
     raise BoardError(f"{source}: net {name!r} not found; the board's plane net must exist before the filter "
                      "is inserted (allowed: a net name declared by a top-level (net N \"name\") line)")
-
-
-def set_plane_net(item_text: str, code: int, name: str) -> str:
-    """Give the copper zones (not the rule areas) of one inserted footprint block the plane's net."""
-    out, pos = [], 0
-    for start, end in _zone_spans(item_text):
-        zone = item_text[start:end]
-        if "(keepout" in zone:
-            continue
-        new = re.sub(r'^\(zone \(net \d+\) \(net_name "(?:[^"\\]|\\.)*"\)',
-                     f'(zone (net {code}) (net_name {_quote(name)})', zone)
-        out.append(item_text[pos:start] + new)
-        pos = end
-    out.append(item_text[pos:])
-    return "".join(out)
 
 
 def zone_priority_for(board_text: str, layout: Layout, plane: str, source: str = "<board>") -> int:
@@ -195,10 +180,6 @@ def _inscribed_radius(poly) -> float:
 
 
 # --- minimal board reading -------------------------------------------------------------------------------
-
-
-def _quote(text: str) -> str:
-    return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
 
 
 _STRUCTURE = re.compile(r'"(?:[^"\\]|\\.)*"|"|[()]', re.S)

@@ -11,7 +11,7 @@ import json
 import zipfile
 from pathlib import Path
 
-from .. import __version__
+from .. import CAUTION, __version__
 from ..outputs import StagedOutputs
 
 IDENTIFIER = "io.github.ebglayout.planecut"
@@ -29,8 +29,7 @@ def metadata(version: str = __version__) -> dict:
             "slots and rule areas appear under the pair in its reference plane(s), with a custom rule that makes "
             "KiCad's zone fill reproduce the cut exactly, and the checks' findings. A second action re-checks every "
             "filter on the board. Needs numpy, shapely, ezdxf, gdstk, scipy and Pillow in KiCad's Python. "
-            "The tool draws, checks and estimates; compliance rests on field solves, measurements, the applicable "
-            "EMC standards and the responsible engineer."),
+            f"{CAUTION}."),
         "identifier": IDENTIFIER,
         "type": "plugin",
         "author": {"name": "ebglayout developers", "contact": {}},

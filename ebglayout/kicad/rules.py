@@ -3,10 +3,11 @@
 Without it KiCad knocks the plane back from a graphic patch by max(zone clearance,
 netclass clearance) + 0.5 um with round corners; a matching custom rule replaces
 both ("winner takes all"), so a clearance <= slot - 0.5 um leaves the rule area's
-sharp edge as the slot (measured with KiCad 6.0.11, fact sheet 2.1-2.4; the fill tests give
-the same exact slots with 9.0.2).
-``insideArea`` is a deprecated but still registered alias in KiCad 7-10 (KiCad's
-expression function table, from the fact sheet), so the rule text is portable.
+sharp edge as the slot (measured by tests/test_kicad_fill.py: ``test_fill_reproduces_the_design``,
+``test_large_zone_clearance_is_harmless_with_the_rule``, ``test_missing_rule_is_reported_and_real``, with KiCad
+6.0.11 here and 9.0.2 in the KiCad 9 root).
+``insideArea`` is a deprecated but still registered alias in KiCad 7-10 (KiCad's expression function table in
+its source, from memory; the KiCad 9 root's fill tests run this rule text with 9.0.2), so the rule text is portable.
 """
 from __future__ import annotations
 

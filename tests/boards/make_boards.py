@@ -3,8 +3,8 @@
 Boards written by KiCad itself (needs the pcbnew module of KiCad 6.0.x):
   samples/hx2_hub.kicad_pcb           4 layers, three pairs, GND plane zone on In1.Cu, +3V3 plane on In2.Cu
   tests/boards/hx2_stripline6.kicad_pcb 6 layers, a stripline pair on In2.Cu between GND planes on In1.Cu and In3.Cu
-Boards written as text from the token notes in the KiCad fact sheet (no pcbnew needed), laid out the way
-KiCad 8+ writes (one list per line, tab indents):
+Boards written as text after KiCad 8-10's file-format changes (KiCad's developer docs, from memory; no pcbnew
+needed), laid out the way KiCad 8+ writes (one list per line, tab indents):
   tests/boards/hx2_v8.kicad_pcb, hx2_v9.kicad_pcb, hx2_v10.kicad_pcb
 Item uuids come from KiCad's generator seeded with a constant, so rerunning gives the same bytes.
 

@@ -1,9 +1,10 @@
 """Bulk reading of track fields straight from the board's bytes: fixed-width numpy windows, one C-level number
 conversion per chunk, repeated texts decoded once.
 
-``board._Reader`` locates each wanted field from the structure scan (``sexpr.scan``) and hands the byte
-windows here.  Nothing here decides what is read, only how fast: a row these helpers cannot vouch for is
-reported unsure and read through the tree parser, which also raises the errors.
+``TrackBulk`` locates each wanted field from the structure scan (``sexpr.scan``) and converts the sure rows;
+the helpers below it cut and decode the byte windows.  Nothing here decides what is read, only how fast: a row
+this module cannot vouch for is reported unsure, and ``board_tracks.py`` reads it through the tree parser, which
+also raises the errors.
 """
 from __future__ import annotations
 
@@ -239,3 +240,157 @@ def row_floats(line: np.ndarray, width: int) -> list[float]:
     except ValueError:
         return [math.nan] * width
     return values if len(values) == width else [math.nan] * width
+
+
+class TrackBulk:
+    """The bulk path of ``board_tracks.TrackReader``: where each field of many items lies, and their numbers."""
+
+    def _locate(self, rows: np.ndarray, head_length: int, heads: tuple[str, ...], words: bool):
+        """Where each wanted field's values start and how long they are (n, fields), for these top-level items.
+
+        A row is sure when each wanted field is its first child with that head,
+        written "(head " and holding no list.  Most items have the fields as their
+        first children in the wanted order (KiCad's writer), which a few array
+        lookups confirm; the rest are looked up by name among their children.
+        With ``words``, every gap between the item's children must be blank; the
+        gap after the item's own head (where KiCad writes "blind" or "micro") is
+        returned as (start, length) per row.
+        """
+        s = self.s
+        o2, c2 = s.level_index(2)
+        first, last = o2[rows], c2[rows]
+        words_of = [name.encode() for name in heads]
+        many = 2 * len(heads)
+        width = 8 * -(-many // 8)
+        sure = (last - first > many) & (first + width < len(s.step))
+        starts = np.zeros((len(rows), len(heads)), s.paren.dtype)
+        lengths = np.zeros_like(starts)
+        if sure.any():
+            at = np.where(sure, first + 1, 0)
+            steps = byte_window(s.step, width)[at].view(np.uint64)
+            for j in range(steps.shape[1]):
+                keep = min(8, many - 8 * j)
+                sure &= (steps[:, j] & MASK[keep]) == (ALTERNATE_WORD & MASK[keep])
+            del steps
+            parens = byte_window(s.paren, many)[at]
+            starts[:] = parens[:, 0::2] + np.array([len(w) + 2 for w in words_of], dtype=parens.dtype)
+            lengths[:] = parens[:, 1::2] - starts
+            found = prefix8(self.data, parens[:, 0::2] + 1)
+            del parens
+            for k, word in enumerate(words_of):
+                sure &= (found[:, k] & MASK[len(word) + 1]) == word_patterns([word], b" ")[0]
+            del found
+        other = np.flatnonzero(~sure)
+        if len(other):
+            sure[other] = self._locate_by_name(first[other], last[other], words_of, starts, lengths, other)
+        gap = None
+        if words:
+            gap = np.empty((len(rows), 2), np.int64)
+            gap[:, 0] = s.paren[first] + (head_length + 1)
+            gap[:, 1] = s.paren[np.minimum(first + 1, last)] - gap[:, 0]
+            done = np.flatnonzero(sure)
+            sure[done] = self._blank_between(first[done], last[done])
+        return starts, lengths, sure, gap
+
+    def _locate_by_name(self, first: np.ndarray, last: np.ndarray, words: list[bytes], starts: np.ndarray,
+                        lengths: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """``_locate`` for items in another field order: each field is the first child with its head.
+
+        Sure only where every child begins with a bare lower-case word and none is
+        another spelling of a wanted head ("(start\\t", "(layers"...), so the tree
+        cannot take a different child for a field.
+        """
+        s = self.s
+        n = len(rows)
+        index, owner = index_ranges(first + 1, last)
+        depth, step = s.depth[index], s.step[index]
+        child = (depth == 3) & (step > 0)
+        co, cc, row_of = index[child], index[(depth == 2) & (step < 0)], owner[child]
+        op = s.paren[co].astype(np.int64)
+        cl = s.paren[cc].astype(np.int64)
+        flat = cc == co + 1
+        pre = prefix8(self.data, op + 1)
+        sure = np.ones(n, dtype=bool)
+        sure[row_of[(pre & np.uint64(0xFF)) - np.uint64(97) >= np.uint64(26)]] = False
+        for k, word in enumerate(words):
+            exact = (pre & MASK[len(word) + 1]) == word_patterns([word], b" ")[0]
+            near = ((pre & MASK[len(word)]) == word_patterns([word], b"")[0]) & ~exact
+            sure[row_of[near]] = False
+            hit = np.flatnonzero(exact)
+            r = row_of[hit]
+            if len(r):
+                keep = np.ones(len(r), dtype=bool)
+                np.not_equal(r[1:], r[:-1], out=keep[1:])
+                hit, r = hit[keep], r[keep]
+            found = np.zeros(n, dtype=bool)
+            found[r] = flat[hit]
+            sure &= found
+            starts[rows[r], k] = op[hit] + (len(word) + 2)
+            lengths[rows[r], k] = cl[hit] - starts[rows[r], k]
+        return sure
+
+    def _blank_between(self, first: np.ndarray, last: np.ndarray) -> np.ndarray:
+        """True for items (paren indices of their "(" and ")") whose children are separated by blanks only."""
+        s = self.s
+        index, owner = index_ranges(first, last + 1)
+        after = np.flatnonzero((s.depth[index] == 2) & (s.step[index] < 0))
+        ends = s.paren[index[after + 1]].astype(np.int64)
+        blank = all_blank(self.data, s.paren[index[after]].astype(np.int64) + 1, ends)
+        sure = np.ones(len(first), dtype=bool)
+        sure[owner[after[~blank]]] = False
+        return sure
+
+    def _bulk_numbers(self, starts: np.ndarray, lengths: np.ndarray, counts: tuple[int, ...], sure: np.ndarray,
+                      out: np.ndarray, follows: dict[int, int] | None = None) -> np.ndarray:
+        """Numbers of the sure rows into ``out``; a row whose fields are not ``counts`` plain numbers becomes unsure.
+
+        Every field of a row is cut out of the file as a fixed-width block padded
+        with spaces and must hold ``counts[k] - 1`` spaces and no control
+        character (tabs, line ends); all blocks then go through ``np.fromstring``
+        (see ``block_floats``).  It converts with the routine behind ``float``
+        (so bit for bit equal) and must read every byte, so each token gives one
+        number or more, and a field holds at most spaces + 1 tokens: the total
+        count proves every field gave exactly its count.  Anything else (a name,
+        "1_0", "1e5e3", "1 ") fails and is re-read through the tree.
+        """
+        sure = sure & ((lengths > 0) & (lengths <= MAX_FIELD)).all(axis=1)
+        rows = np.flatnonzero(sure)
+        if not len(rows) or not counts:
+            return sure
+        size = len(self.data)
+        width = 8 * (int(lengths[rows].max()) // 8 + 1)
+        if int(starts[rows].max()) + width > size:
+            sure[rows[(starts[rows] + width > size).any(axis=1)]] = False
+            rows = np.flatnonzero(sure)
+        if not len(rows):
+            return sure
+        length = lengths[rows]
+        block = byte_window(self.data, width)[starts[rows]]
+        keep = KEEP[width // 8][length]
+        words = block.view(np.uint64)
+        words &= keep
+        words |= ~keep & SPACES
+        del keep, words
+        inner = np.count_nonzero(block == 32, axis=-1) - (width - length)
+        good = inner[:, 0] == counts[0] - 1
+        for k in range(1, len(counts)):
+            good &= inner[:, k] == counts[k] - 1
+        del inner
+        if block.min() < 32:
+            good &= block.reshape(len(rows), -1).min(axis=1) >= 32
+        if not good.all():
+            sure[rows[~good]] = False
+            rows, block = rows[good], block[good]
+        values = block_floats(block, counts, follows)
+        if values is None:
+            total = sum(counts)
+            values = np.array([row_floats(line, total) for line in block.reshape(len(rows), -1)]).reshape(-1, total)
+        if not np.isfinite(values).all():
+            finite = np.isfinite(values).all(axis=1)
+            sure[rows[~finite]] = False
+            rows, values = rows[finite], values[finite]
+        if len(rows) == len(out):
+            out[:] = values
+        else:
+            out[rows] = values
+        return sure
