@@ -13,10 +13,12 @@ from ebglayout.response import summarize
 from ebglayout.sparams import mixed_mode
 
 HERE = Path(__file__).resolve().parent / "reference" / "fullwave"
-CASES = ("hx2_l0_straight3_lossless", "hx2_l0_straight3_lossy", "hx2_l0_straight3_patch40", "hx2_l2_tx_bridged")
+CASES = ("hx2_l0_straight3_lossless", "hx2_l0_straight3_lossy", "hx2_l0_straight3_patch40", "hx2_l0_straight3_h020",
+         "hx2_l2_tx_bridged")
 STRAIGHT_LOSSLESS = {  # case: (patch length along the pair, mm; cavity er)
     "hx2_l0_straight3_lossless": (4.6, 4.1),
     "hx2_l0_straight3_patch40": (4.0, 4.1),
+    "hx2_l0_straight3_h020": (4.6, 4.1),
 }
 
 
@@ -72,6 +74,16 @@ def test_notch_moves_inversely_with_patch_length():
     _, short = _case("hx2_l0_straight3_patch40")
     ratio = short["scc21"]["notch_hz"] / long_["scc21"]["notch_hz"]
     assert ratio == pytest.approx(4.6 / 4.0, rel=0.02)
+
+
+def test_taller_cavity_lowers_the_notch():
+    """The same filter over a 0.2 mm instead of a 0.1 mm cavity: the notch is lower, by less than 3 %.  The field
+    fringing at a patch's edges lengthens it electrically by an amount that grows with the cavity height
+    (Hammerstad's open-end extension of a microstrip, from memory), while the f10 formula has no h in it."""
+    _, thin = _case("hx2_l0_straight3_lossless")
+    _, tall = _case("hx2_l0_straight3_h020")
+    ratio = tall["scc21"]["notch_hz"] / thin["scc21"]["notch_hz"]
+    assert 0.97 < ratio < 1.0
 
 
 def test_dielectric_loss_shallows_the_notch_and_costs_the_expected_line_loss():
