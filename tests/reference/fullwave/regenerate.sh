@@ -5,7 +5,7 @@ set -euo pipefail
 cd "$(dirname "$0")/../../.."
 here=tests/reference/fullwave
 ebglayout fullwave "$here/hx2_l0_straight3_lossless.toml" --out "$here" --preset default --threads 2 --force
-for case in lossy patch40 h020; do
+for case in lossy patch40 h020 stagger4; do
     ebglayout fullwave "$here/hx2_l0_straight3_$case.toml" --out "$here" --preset default --threads 2 --force
 done
 ebglayout fullwave samples/hx2_l2_tx_bridged.toml --out "$here" --preset default --threads 2 --force
