@@ -29,7 +29,8 @@ SPEC = Path(__file__).resolve().parent.parent / "tests" / "reference" / "fullwav
 
 
 def summary(result) -> dict:
-    mm = mixed_mode(result.network)
+    ref = result.meta["mode_reference_ohm"]
+    mm = mixed_mode(result.network, ref["differential"], ref["common"])
     s = summarize(mm.freq_hz, 20 * np.log10(np.abs(mm.scc21)))
     band = s.stopband_hz
     return {"notch_ghz": s.notch_hz / 1e9, "depth_db": s.depth_db,

@@ -51,13 +51,20 @@ class MixedMode:
     """Common-mode reference impedance (at the first frequency) the terms refer to."""
 
 
-def mixed_mode(network) -> MixedMode:
-    """Mixed-mode terms of a 4-port in the project's port order (see the module docstring), by scikit-rf."""
+def mixed_mode(network, z0_diff_ohm: float | None = None, z0_comm_ohm: float | None = None) -> MixedMode:
+    """Mixed-mode terms of a 4-port in the project's port order (see the module docstring), by scikit-rf.
+
+    Given both mode impedances, the modes are referred to them (scikit-rf ``se2gmm`` with ``z0_mm``, an exact
+    renormalisation); otherwise to 2 Z0 and Z0 / 2 of the single-ended ports."""
     nports = getattr(network, "nports", None)
     if nports != 4:
         raise EbgError(f"network ports = {nports}: mixed-mode terms need a 4-port (P/N near end, P/N far end)")
     mm = network.copy()
-    mm.se2gmm(p=2)
+    if z0_diff_ohm is not None and z0_comm_ohm is not None:
+        z0_mm = np.tile([z0_diff_ohm, z0_diff_ohm, z0_comm_ohm, z0_comm_ohm], (len(mm.f), 1)).astype(complex)
+        mm.se2gmm(p=2, z0_mm=z0_mm)
+    else:
+        mm.se2gmm(p=2)
     s = mm.s
     return MixedMode(freq_hz=np.array(mm.f, dtype=float), scc21=s[:, 3, 2].copy(), sdd21=s[:, 1, 0].copy(),
                      sdc21=s[:, 1, 2].copy(), scc11=s[:, 2, 2].copy(), sdd11=s[:, 0, 0].copy(),

@@ -84,6 +84,28 @@ def test_plain_line_impedance_and_loss(openems):
         assert np.all(np.abs(s21_db[band] + loss_db[band]) < 1.0), mode
 
 
+def test_coupled_plain_line_reads_matched_at_the_mode_impedances(openems):
+    """No cut, the pair as tightly coupled as the sample (0.12 / 0.15 mm at 0.1 mm): referred to the closed-form
+    mode impedances (differential 2 Z0odd, common Z0even / 2 from Kirschning-Jansen, estimate/lines.py) the lead-in
+    reflects little in both modes (|Sdd11|, |Scc11| at most -15 dB below 0.9 f_max), less than at the plain
+    2 Z0 / Z0 / 2 of the lumped ports' single impedance (transmission-line theory: a matched reference removes the
+    mismatch the single port impedance leaves on a coupled pair's two modes)."""
+    from ebglayout.fullwave.run import mode_reference
+
+    layout = build_layout(_spec(**{"cut.count": 1}))
+    result = simulate(layout, "fast", threads=2, with_cut=False)
+    net, f = result.network, result.network.f
+    band = (f > 2e9) & (f < 0.9 * f.max())
+    ref = mode_reference(layout)
+    matched = mixed_mode(net, ref["differential"], ref["common"])
+    z_port = result.meta["port_resistor_ohm"]
+    single = mixed_mode(net, 2 * z_port, z_port / 2)
+    for term in ("sdd11", "scc11"):
+        worst = 20 * np.log10(np.abs(getattr(matched, term))[band].max())
+        assert worst <= -15, term
+        assert worst < 20 * np.log10(np.abs(getattr(single, term))[band].max()), term
+
+
 def test_passive_and_reciprocal(openems):
     """A passive reciprocal structure: singular values of S at most 1 (+0.02) and S = S^T within 0.02 at every
     frequency (network theory).  Run on the full domain with common and differential drives, so reciprocity is

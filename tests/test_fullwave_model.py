@@ -89,6 +89,27 @@ def test_stripline_ports_feed_both_planes(sample_layouts):
     assert model.boundaries[4:] == ("PEC", "PEC")
 
 
+def test_stripline_stack_has_both_cuts_and_both_cavities(sample_layouts):
+    """Stripline (In1.Cu / In2.Cu pair / In3.Cu): both plane sheets carry the drawn cut, one on each side of the
+    traces at pair_h, and each has its own cavity of height h out to a solid plane (the domain's electric walls at
+    z = -h and 2 pair_h + h), as the stack-up says; no sheet or slab is missing or doubled."""
+    layout = sample_layouts["hx2_l3_rx_stripline"]
+    model = build_model(layout, "fast")
+    first, second = layout.stackup.planes
+    sheets = {s.name: s for s in model.sheets}
+    assert sheets["plane1"].z == 0.0 and sheets["traces"].z == pytest.approx(first.pair.h)
+    assert sheets["plane2"].z == pytest.approx(first.pair.h + second.pair.h)
+    cut1 = unary_union(sheets["plane1"].polygons)
+    cut2 = unary_union(sheets["plane2"].polygons)
+    assert cut1.symmetric_difference(cut2).area < 1e-9
+    assert cut1.area < box(*cut1.bounds).area - 0.99 * layout.cuts[0].slot.area
+    z = [v for slab in model.slabs for v in (slab.z0, slab.z1)]
+    top = first.pair.h + second.pair.h
+    assert z == pytest.approx([-first.cavity.h, 0.0, 0.0, first.pair.h, first.pair.h, top,
+                               top, top + second.cavity.h])
+    assert (model.domain[4], model.domain[5]) == pytest.approx((-first.cavity.h, top + second.cavity.h))
+
+
 def test_thirds_rule_at_trace_edges(sample_layouts):
     """Across each trace's long edges the mesh has a line a third of a cell inside and two thirds outside, and
     none on the edge itself (the thirds rule for metal edges in FDTD; common practice)."""

@@ -131,3 +131,20 @@ def test_touchstone_renormalises_to_r_ref_and_refuses_mixed_references(tmp_path)
     with pytest.raises(EbgError, match="NaN"):
         touchstone_text(network, [], r_ref=50.0)
     assert not list(tmp_path.glob("*.tmp"))
+
+
+def test_mode_impedances_renormalise_a_plain_line_to_matched():
+    """Two uncoupled 60-ohm lines measured at 50-ohm ports: referred to the line's own mode impedances
+    (differential 2 Z0odd = 120 ohm, common Z0even / 2 = 30 ohm; uncoupled lines have Z0odd = Z0even = Z0,
+    Bockelman and Eisenstadt as above) both modes read matched and lossless through, while the default 100 / 25 ohm
+    reference shows the mismatch ripple (a 60-ohm line between 50-ohm ports reflects up to
+    2 |rho| / (1 + rho^2) with rho = 10 / 110, transmission-line theory)."""
+    network = pair_of_lines(12.0, 12.0, z0=60.0)
+    network.renormalize(50.0)
+    plain = mixed_mode(network)
+    assert np.abs(plain.sdd11).max() > 0.15 and np.abs(plain.scc11).max() > 0.15
+    matched = mixed_mode(network, z0_diff_ohm=120.0, z0_comm_ohm=30.0)
+    assert (matched.z0_diff_ohm, matched.z0_comm_ohm) == (120.0, 30.0)
+    assert np.abs(matched.sdd11).max() < 1e-9 and np.abs(matched.scc11).max() < 1e-9
+    assert np.abs(matched.sdd21) == pytest.approx(1.0, abs=1e-9)
+    assert np.abs(matched.scc21) == pytest.approx(1.0, abs=1e-9)

@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import EbgError
 from ..layout import Layout
-from ..estimate.lines import microstrip_single, stripline_single
+from ..estimate.lines import microstrip_single, pair_lines, stripline_single
 from .model import PRESETS, Model, build_model, half_model
 from .openems import Progress, RunSignals, check_drawn, engine_version, find_engine, run_engine, spectrum
 
@@ -64,6 +64,16 @@ def port_impedance(layout: Layout) -> float:
         return stripline_single(w, b, stack.planes[0].pair.er).z0
     plane = stack.planes[0].pair
     return microstrip_single(w / plane.h, plane.er).z0
+
+
+def mode_reference(layout: Layout) -> dict:
+    """The mixed-mode reference impedances the results are stated at: differential 2 Z0odd and common Z0even / 2
+    of the pair's lead-in (closed forms of estimate/lines.py), so a plain line reads matched in both modes and the
+    lumped ports' single impedance leaves no standing-wave ripple on Scc21 and Sdd21."""
+    lines = pair_lines(layout.stackup, layout.spec.pair_width, layout.spec.pair_spacing)
+    return {"differential": round(lines.z_differential, 3), "common": round(lines.z_common, 3),
+            "method": "scikit-rf se2gmm z0_mm: the 50-ohm single-ended S-parameters renormalised to the pair's "
+                      "closed-form mode impedances (differential 2 Z0odd, common Z0even / 2)"}
 
 
 def plan(model: Model, symmetry: str = "auto") -> list[Drive]:
@@ -168,7 +178,9 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
             runs.append((drive, run_engine(drive.model, drive.excite, workdir / drive.name, threads, deadline,
                                            report)))
         coarse = _network(frequency_grid(model), runs, model, layout.spec.name)
-        freq = refine_grid(coarse.f, 20 * np.log10(np.maximum(np.abs(mixed_mode(coarse).scc21), 1e-15)))
+        ref = mode_reference(layout)
+        scc21 = mixed_mode(coarse, ref["differential"], ref["common"]).scc21
+        freq = refine_grid(coarse.f, 20 * np.log10(np.maximum(np.abs(scc21), 1e-15)))
         network = _network(freq, runs, model, layout.spec.name)
     finally:
         if not keep:
@@ -186,6 +198,7 @@ def simulate(layout: Layout, preset: str = "default", threads: int = 2, time_lim
         "wall_s": round(time.monotonic() - started, 1),
         "port_resistor_ohm": round(model.ports[0].feeds[0].resistance / len(model.ports[0].feeds), 2),
         "reference_ohm": Z_REF,
+        "mode_reference_ohm": mode_reference(layout),
         "loss": f"dielectric conductivity fitted to tan d at {model.f_kappa_hz / 1e9:.2f} GHz; copper lossless",
         "f_max_hz": model.f_max_hz,
         "line_length_mm": round(model.port(3).feeds[0].x - model.port(1).feeds[0].x, 6),
@@ -240,7 +253,8 @@ def fullwave_to_folder(layout: Layout, out_dir: Path, *, preset: str = "default"
         result = simulate(layout, preset, threads, time_limit, progress, keep)
         meta = result.meta
         source = f"full-wave: {meta['engine']} FDTD, preset {meta['preset']}"
-        data = response_json(mixed_mode(result.network), source=source, target_hz=layout.spec.target_hz,
+        ref = meta["mode_reference_ohm"]
+        data = response_json(mixed_mode(result.network, ref["differential"], ref["common"]), source=source, target_hz=layout.spec.target_hz,
                              threshold_db=threshold_db, extra={"fullwave": meta,
                                                                "stackup": layout.stackup.to_json()})
         comments = [f"source: {source}; {meta['symmetry']}", f"loss: {meta['loss']}",
