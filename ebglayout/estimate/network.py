@@ -15,10 +15,16 @@ beyond, L = Z0_air l / c, with Z0_air the strip's impedance in air by Hammerstad
 height (the inductance per length of a strip over a plane, not the free-space bar).  A stripline pair sees its
 two cut planes' series elements in parallel (both return paths carry part of the current).
 
+The cavity's walls sit a little outside the drawn edge: the fringing field beyond the edge stores charge as if
+the patch were longer by the open-end extension dl on every side (E. O. Hammerstad, "Equations for microstrip
+circuit design", Proc. 5th European Microwave Conf., 1975, the form Balanis, Antenna Theory, 3rd ed., eq. 14-2,
+uses for the patch's effective length; from memory).  The modes are solved on the drawn polygon grown by dl
+(mitred corners), the ports stay on the drawn edge.
+
 Loss: dielectric loss of the lines and cavities from tan d; copper loss on the lines (``lines``) and in the
 cavities as an added loss tangent delta_s / h (the conductor Q of a thin cavity, Q_c = h / delta_s; C. A.
 Balanis, Antenna Theory, 3rd ed., sec. 14.2; from memory).  Left out, and said so in the docs: radiation, the
-slot's own gap capacitance and edge fringing (the ideal magnetic wall), the trace length over the slot as
+slot's own gap capacitance to the plane around it, the trace length over the slot as
 anything but line, the P/N length difference of a bend, and any resonance of the outer planes.
 
 Solved per frequency as one nodal admittance matrix (line sections, crossing branches) reduced to the four
@@ -37,7 +43,7 @@ from ..crossing import TOUCH_MM
 from ..errors import EbgError
 from ..layout import Layout
 from ..stackup import Stackup
-from .cavity import C0, MU0, PortModes, port_modes
+from .cavity import C0, MU0, PortModes, own_frame, port_modes
 from .lines import COPPER_S_PER_M, CoupledLines, microstrip_single, pair_lines
 from .lumped import bridge_width
 
@@ -64,11 +70,13 @@ class _Branch:
     bodies: tuple[str, str]
 
 
-def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z0_ohm: float | None = None):
+def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z0_ohm: float | None = None,
+                   copper: bool = True):
     """The filter as a scikit-rf 4-port (ports: P near, N near, P far, N far) at ``freq_hz`` (Hz, > 0).
 
     ``stackup`` overrides the layout's (for tolerance corners); ``z0_ohm`` is the reference impedance of every
-    port (default: sqrt(Z0e Z0o) of the pair, near a match for both modes).
+    port (default: sqrt(Z0e Z0o) of the pair, near a match for both modes); ``copper`` False makes every
+    conductor perfect, as in a full-wave run with lossless copper (the only fair comparison with one).
     """
     import skrf
 
@@ -77,7 +85,7 @@ def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z
         raise EbgError("freq_hz: must be a non-empty list of finite frequencies > 0")
     stackup = stackup or layout.stackup
     spec = layout.spec
-    lines = pair_lines(stackup, spec.pair_width, spec.pair_spacing)
+    lines = pair_lines(stackup, spec.pair_width, spec.pair_spacing, copper)
     z0 = z0_ohm if z0_ohm is not None else math.sqrt(lines.even.z0 * lines.odd.z0)
     y = np.concatenate([port_admittance(layout, freq[k:k + CHUNK], stackup, lines)
                         for k in range(0, len(freq), CHUNK)])
@@ -179,7 +187,7 @@ def _group_transfer(layout: Layout, branches: list[_Branch], freq: np.ndarray, s
         to_slot = np.zeros((len(mine), count))
         for k, b in enumerate(mine):
             to_slot[k, slot_of[station_of[round(b.s / STATION_MM)], b.trace]] = 1.0
-        z_layer = _branch_impedance(layout, mine, freq, stackup)
+        z_layer = _branch_impedance(layout, mine, freq, stackup, lines.copper_s_per_m is not None)
         if len(layers) == 1 and np.all(to_slot.sum(axis=0) == 1):  # one plane: the crossings are the slots
             z_slots = to_slot.T @ z_layer @ to_slot
         else:
@@ -246,8 +254,10 @@ def _branches(layout: Layout) -> list[_Branch]:
     return out
 
 
-def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray, stackup: Stackup) -> np.ndarray:
-    """Series impedance matrix (F, B, B) of one cut plane's crossings: sum over patches of sign x cavity Z x sign."""
+def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray, stackup: Stackup,
+                      copper: bool) -> np.ndarray:
+    """Series impedance matrix (F, B, B) of one cut plane's crossings: sum over patches of sign x cavity Z x sign
+    (``copper`` False: perfect conductors)."""
     cut = layout.cut(branches[0].layer)
     plane = next(p for p in stackup.planes if p.layer == cut.layer)
     cavity = plane.cavity
@@ -263,14 +273,26 @@ def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray,
         ties = [g for g in bridges if g.distance(patch) < TOUCH_MM]
         segments = [_edge_port(patch, branches[k].point, branches[k].width) for k, _ in on]
         segments += [_tie_port(patch, g) for g in ties]
-        modes = _cached_modes(patch, segments, k_keep)
-        z_cav = modes.impedance(freq, cavity.er, cavity.h, cavity.tan_d + _copper_tan_d(freq, cavity.h))
+        grown = patch.buffer(edge_extension(patch, cavity.h, cavity.er), join_style="mitre")
+        modes = _cached_modes(grown, segments, k_keep)
+        copper_tan_d = _copper_tan_d(freq, cavity.h) if copper else 0.0
+        z_cav = modes.impedance(freq, cavity.er, cavity.h, cavity.tan_d + copper_tan_d)
         z_cav = _tie_bridges(z_cav, len(on), [_bridge_inductance(g, layout.spec.bridge_length, cavity.h)
                                                for g in ties], freq)
         idx = [k for k, _ in on]
         sign = np.array([s for _, s in on])
         z[:, np.ix_(idx, idx)[0], np.ix_(idx, idx)[1]] += z_cav * np.outer(sign, sign)[None]
     return z
+
+
+def edge_extension(patch: Polygon, h_mm: float, er: float) -> float:
+    """Open-end extension dl (mm) of the patch's edges, Hammerstad's form (see the module docstring):
+    dl / h = 0.412 (eeff + 0.3) (W/h + 0.264) / ((eeff - 0.258) (W/h + 0.8)), W the patch's narrower side
+    (for the patches drawn here W >> h, where dl barely depends on W), eeff Hammerstad and Jensen's at W/h."""
+    rect = own_frame(patch).bounds
+    u = min(rect[2], rect[3]) / h_mm
+    eeff = microstrip_single(u, er).eeff
+    return h_mm * 0.412 * (eeff + 0.3) * (u + 0.264) / ((eeff - 0.258) * (u + 0.8))
 
 
 def _copper_tan_d(freq: np.ndarray, h_mm: float) -> np.ndarray:
