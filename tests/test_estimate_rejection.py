@@ -8,7 +8,6 @@ References outside ebglayout:
 """
 from __future__ import annotations
 
-
 import math
 import re
 from dataclasses import replace
