@@ -1,0 +1,141 @@
+"""The circuit model against a stored full-wave result of the same drawn filter, figure by figure.
+
+A full-wave result (``ebglayout fullwave``: ``<name>.s4p`` and ``<name>.fullwave.json``) is read back through
+scikit-rf's Touchstone reader and the model is solved on the result's own frequency grid, referred to the
+result's port impedance and with perfect conductors (the full-wave runs model copper as lossless, see the
+README's full-wave limits), so both curves describe the same idealised board.  Both are summarised by
+``response.summarize``; the figures compared are the ones issue 13 sets goals for (``GOALS``).
+"""
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..response import db20, summarize
+from ..sparams import mixed_mode
+
+GOALS = {"notch_straight": 0.015, "notch_other": 0.04, "edge": 0.02, "depth_db": 8.0, "sdd21_db": 0.5,
+         "sdd21_below": 0.8}
+"""Agreement goals: notch within 1.5 % (straight microstrip rows) or 4 % (bridged, folded, stripline), each
+-10 dB stopband edge within 2 % of the notch frequency, depth within 8 dB, |Sdd21| within 0.5 dB below 0.8 x the
+notch."""
+
+METRICS = ("notch", "stopband", "depth", "sdd21")
+
+KNOWN_MISSES = {
+    ("hx2_l0_straight3_lossless", "depth"):
+        "lossless on both sides: the model has no radiation, so its lossless notch is as deep as the grid "
+        "happens to sample (a pole), while the full-wave notch is held near -24 dB by the slot's radiation",
+    ("hx2_l2_tx_bridged", "depth"):
+        "the bridged cells' resonance is far sharper in the model than in openEMS: the full-wave dip is "
+        "4 dB, the model's over 20 dB; the model's bridges and patch spreading path have no resistance and the "
+        "return current at a crossing enters the cavity at the trace's width only",
+    ("hx2_l2_tx_bridged", "stopband"):
+        "the full-wave result never reaches -10 dB (dip of 4 dB), the model does: see its depth",
+}
+"""Figures where the model misses its goal after the physics above, with the reason; the tests mark these
+expected failures (strict, so a fix shows) and the README's table says so."""
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """One stored case: both summaries and the figures the goals apply to."""
+
+    name: str
+    kind: str
+    model: object
+    fullwave: object
+    notch_error: float
+    edge_errors: tuple[float, float] | None
+    depth_error_db: float
+    sdd21_error_db: float
+
+    @property
+    def notch_goal(self) -> float:
+        return GOALS["notch_straight"] if self.kind == "straight" else GOALS["notch_other"]
+
+    def meets(self, metric: str) -> bool:
+        """Whether one figure (``METRICS``) is within its goal; a stopband on one side only is a miss."""
+        if metric == "notch":
+            return abs(self.notch_error) <= self.notch_goal
+        if metric == "stopband":
+            if self.model.stopband_hz is None and self.fullwave.stopband_hz is None:
+                return True
+            return self.edge_errors is not None and max(map(abs, self.edge_errors)) <= GOALS["edge"]
+        if metric == "depth":
+            return abs(self.depth_error_db) <= GOALS["depth_db"]
+        if metric == "sdd21":
+            return self.sdd21_error_db <= GOALS["sdd21_db"]
+        raise ValueError(metric)
+
+
+def stored_cases(folder: Path) -> list[str]:
+    """Names of the complete stored results (Touchstone and JSON) in ``folder``, sorted."""
+    return sorted(p.name[:-len(".fullwave.json")] for p in folder.glob("*.fullwave.json")
+                  if (folder / (p.name[:-len(".fullwave.json")] + ".s4p")).exists())
+
+
+def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
+    """The model of ``spec_path`` against the stored result ``name`` in ``folder``."""
+    import skrf
+
+    from ..layout import build_layout
+    from ..spec import load_spec
+    from .network import filter_network
+
+    data = json.loads((folder / f"{name}.fullwave.json").read_text(encoding="utf-8"))
+    reference = skrf.Network(str(folder / f"{name}.s4p"))
+    ref_mm = mixed_mode(reference)
+    freq = ref_mm.freq_hz
+    layout = build_layout(load_spec(spec_path))
+    z0 = float(np.real(reference.z0[0, 0]))
+    model_mm = mixed_mode(filter_network(layout, freq, z0_ohm=z0, copper=False))
+    threshold = data["threshold_db"]
+    ref_sum = summarize(freq, db20(ref_mm.scc21), threshold)
+    mod_sum = summarize(freq, db20(model_mm.scc21), threshold)
+    notch = ref_sum.notch_hz
+    edges = None
+    if ref_sum.stopband_hz is not None and mod_sum.stopband_hz is not None:
+        edges = tuple((m - r) / notch for m, r in zip(mod_sum.stopband_hz, ref_sum.stopband_hz))
+    below = freq < GOALS["sdd21_below"] * notch
+    sdd = float(np.max(np.abs(db20(model_mm.sdd21[below]) - db20(ref_mm.sdd21[below])))) if below.any() else math.nan
+    spec = layout.spec
+    kind = "straight" if spec.style == "straight" and not layout.stackup.stripline else spec.style
+    if layout.stackup.stripline:
+        kind = f"{kind}, stripline"
+    return Comparison(name, kind, mod_sum, ref_sum, mod_sum.notch_hz / notch - 1, edges,
+                      mod_sum.depth_db - ref_sum.depth_db, sdd)
+
+
+def spec_for(folder: Path, name: str, samples: Path) -> Path:
+    """The spec a stored case was made from: beside it in ``folder``, else the bundled sample of that name."""
+    here = folder / f"{name}.toml"
+    return here if here.exists() else samples / f"{name}.toml"
+
+
+def table(comparisons: list[Comparison]) -> str:
+    """The README's table of model versus full-wave (Markdown)."""
+    rows = ["| case | kind | notch, model / full-wave | depth, model / full-wave | -10 dB stopband, model / "
+            "full-wave | edge errors (of the notch) | worst \\|Sdd21\\| difference below 0.8 x notch | goals missed |",
+            "|---|---|---|---|---|---|---|---|"]
+    for c in comparisons:
+        missed = [m for m in METRICS if not c.meets(m)]
+        edges = "-" if c.edge_errors is None else " / ".join(f"{e * 100:+.2f} %" for e in c.edge_errors)
+        rows.append(
+            f"| `{c.name}` | {c.kind} | {c.model.notch_hz / 1e9:.3f} / {c.fullwave.notch_hz / 1e9:.3f} GHz "
+            f"({c.notch_error * 100:+.2f} %, goal {c.notch_goal * 100:.1f} %) | {_depth(c.model.depth_db)} / "
+            f"{_depth(c.fullwave.depth_db)} dB | {_band(c.model.stopband_hz)} / {_band(c.fullwave.stopband_hz)} | "
+            f"{edges} | {c.sdd21_error_db:.2f} dB | {', '.join(missed) or 'none'} |")
+    return "\n".join(rows)
+
+
+def _depth(db: float) -> str:
+    return "below -60" if db < -60 else f"{db:.1f}"
+
+
+def _band(band) -> str:
+    return "none" if band is None else f"{band[0] / 1e9:.3f}-{band[1] / 1e9:.3f} GHz"
