@@ -23,8 +23,12 @@ uses for the patch's effective length; from memory).  The modes are solved on th
 
 Loss: dielectric loss of the lines and cavities from tan d; copper loss on the lines (``lines``) and in the
 cavities as an added loss tangent delta_s / h (the conductor Q of a thin cavity, Q_c = h / delta_s; C. A.
-Balanis, Antenna Theory, 3rd ed., sec. 14.2; from memory).  Left out, and said so in the docs: radiation, the
-slot's own gap capacitance to the plane around it, the trace length over the slot as
+Balanis, Antenna Theory, 3rd ed., sec. 14.2; from memory), and radiation through the slots around the patch as
+one more, 1 / Q_rad (``radiation_tan_d``): a slot between patch and plane carries the cavity's edge voltage as a
+magnetic current over a ground plane, as a patch antenna's radiating edge does, so the patch antenna's
+radiation Q applies; the effective loss tangent 1 / Q is how Balanis (same section) puts every loss into the
+cavity model.  Left out, and said so in the docs: the slot's own gap capacitance to the plane around it, the
+plane around the cut as anything but the plane beyond (ideal stitching), the trace length over the slot as
 anything but line, the P/N length difference of a bend, and any resonance of the outer planes.
 
 Solved per frequency as one nodal admittance matrix (line sections, crossing branches) reduced to the four
@@ -276,7 +280,8 @@ def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray,
         grown = patch.buffer(edge_extension(patch, cavity.h, cavity.er), join_style="mitre")
         modes = _cached_modes(grown, segments, k_keep)
         copper_tan_d = _copper_tan_d(freq, cavity.h) if copper else 0.0
-        z_cav = modes.impedance(freq, cavity.er, cavity.h, cavity.tan_d + copper_tan_d)
+        loss = cavity.tan_d + copper_tan_d + radiation_tan_d(patch, freq, cavity.h, cavity.er)
+        z_cav = modes.impedance(freq, cavity.er, cavity.h, loss)
         z_cav = _tie_bridges(z_cav, len(on), [_bridge_inductance(g, layout.spec.bridge_length, cavity.h)
                                                for g in ties], freq)
         idx = [k for k, _ in on]
@@ -293,6 +298,22 @@ def edge_extension(patch: Polygon, h_mm: float, er: float) -> float:
     u = min(rect[2], rect[3]) / h_mm
     eeff = microstrip_single(u, er).eeff
     return h_mm * 0.412 * (eeff + 0.3) * (u + 0.264) / ((eeff - 0.258) * (u + 0.8))
+
+
+def radiation_tan_d(patch: Polygon, freq: np.ndarray, h_mm: float, er: float) -> np.ndarray:
+    """Radiation through the slots around a patch as an added loss tangent 1 / Q_rad (see the module docstring).
+
+    Q_rad = 3 er L / (16 p c1 W) x lambda0 / h, c1 = 1 - 1/er + 2 / (5 er^2), p = 1 - 0.16605 (k0 W)^2 / 20
+    + 0.00761 x 3 (k0 W)^4 / 560 - 0.0914153 (k0 L)^2 / 5: D. R. Jackson and N. G. Alexopoulos, "Simple
+    approximate formulas for input resistance, bandwidth, and efficiency of a resonant rectangular patch",
+    IEEE Trans. AP 39(3), 1991 (from memory), for the mode along the long side L of the patch's rectangle.
+    """
+    _, _, length, width = own_frame(patch).bounds
+    k0 = 2 * np.pi * freq / C0 * 1e-3  # 1/mm
+    c1 = 1 - 1 / er + 2 / (5 * er ** 2)
+    p = 1 - 0.16605 * (k0 * width) ** 2 / 20 + 0.00761 * 3 * (k0 * width) ** 4 / 560 - 0.0914153 * (k0 * length) ** 2 / 5
+    q_rad = 3 * er * length / (16 * p * c1 * width) * (2 * np.pi / k0) / h_mm
+    return 1 / q_rad
 
 
 def _copper_tan_d(freq: np.ndarray, h_mm: float) -> np.ndarray:
