@@ -4,7 +4,7 @@ A full-wave result (``ebglayout fullwave``: ``<name>.s4p`` and ``<name>.fullwave
 scikit-rf's Touchstone reader and the model is solved on the result's own frequency grid, referred to the
 result's port impedance and with perfect conductors (the full-wave runs model copper as lossless, see the
 README's full-wave limits), so both curves describe the same idealised board.  Both are summarised by
-``response.summarize``; the figures compared are the ones issue 13 sets goals for (``GOALS``).
+``response.summarize``, the model around its dip nearest the full-wave notch (``_dip_around``); the figures compared are the ones issue 13 sets goals for (``GOALS``).
 """
 from __future__ import annotations
 
@@ -27,6 +27,33 @@ notch."""
 METRICS = ("notch", "stopband", "depth", "sdd21")
 
 KNOWN_MISSES = {
+    ("hx2_l0_straight3_h020", "notch"):
+        "+1.80 % at h 0.2 mm; the model's notch sits high on every straight reference (+1.4 to +1.9 %), the "
+        "sign of the edge term it leaves out: the slot's capacitance to the plane around the cut, 0.15 mm across "
+        "it, on top of the open-end fringing to the plane beyond (Hammerstad's extension assumes an open edge); "
+        "over a thicker cavity that term is larger",
+    ("hx2_l0_straight3_h020", "stopband"):
+        "low edge +2.63 % of the notch (high edge +0.99 %): the band sits where the notch does, see the notch",
+    ("hx2_l0_straight3_lossy", "stopband"):
+        "the model's dip is -6.3 dB against the full-wave -10.2 dB, so it has no -10 dB band where the full-wave "
+        "one is 0.4 % wide: with tan d 0.02 the cavity's Q is near its loss limit, and the model's loss is the "
+        "handbook's constant tan d, higher at the notch than the full-wave run's (see |Sdd21|)",
+    ("hx2_l0_straight3_lossy", "sdd21"):
+        "0.55 dB: the full-wave line loss is nearly flat with frequency (|Sdd21| -0.67 dB at 1.3 GHz, -0.75 dB "
+        "at 14.4 GHz), as a dielectric conductivity fitted to tan d at one frequency gives, and smaller than the "
+        "handbook attenuation with a constant tan d the model uses (D. M. Pozar, Microwave Engineering, 4th ed., "
+        "eq. 3.198; from memory; model -1.66 dB at 14.4 GHz)",
+    ("hx2_l0_straight3_patch40", "notch"):
+        "+1.89 % with the 4.0 mm patch: the same missing slot capacitance as at h 0.2 mm, a larger share of a "
+        "shorter cavity",
+    ("hx2_l0_straight3_patch40", "stopband"):
+        "low edge +2.36 % of the notch (high edge +1.46 %): the band sits where the notch does, see the notch",
+    ("hx2_l0_straight3_stagger4", "notch"):
+        "+1.74 % on the smallest cell's dip (the full-wave notch); the three cells' dips sit +1.4, +1.5 and "
+        "+1.7 % high, as on the single-size rows (missing slot capacitance)",
+    ("hx2_l0_straight3_stagger4", "stopband"):
+        "the full-wave dip only just passes -10 dB (-10.9 dB, 0.3 % wide); the model's same dip is -7.9 dB, so "
+        "it has no band",
     ("hx2_l2_tx_bridged", "depth"):
         "full-wave dip 4.3 dB, model 23 dB: the bridges tie each patch to the plane around the cut, which the "
         "model takes as the plane beyond (ideal stitching), while the full-wave run ties the two planes only by "
@@ -96,8 +123,10 @@ def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
     model_mm = mixed_mode(filter_network(layout, freq, z0_ohm=z0, copper=False))
     threshold = data["threshold_db"]
     ref_sum = summarize(freq, db20(ref_mm.scc21), threshold)
-    mod_sum = summarize(freq, db20(model_mm.scc21), threshold)
     notch = ref_sum.notch_hz
+    model_db = db20(model_mm.scc21)
+    window = _dip_around(model_db, int(np.argmin(np.abs(freq - notch))), threshold)
+    mod_sum = summarize(freq[window], model_db[window], threshold)
     edges = None
     if ref_sum.stopband_hz is not None and mod_sum.stopband_hz is not None:
         edges = tuple((m - r) / notch for m, r in zip(mod_sum.stopband_hz, ref_sum.stopband_hz))
@@ -109,6 +138,25 @@ def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
         kind = f"{kind}, stripline"
     return Comparison(name, kind, mod_sum, ref_sum, mod_sum.notch_hz / notch - 1, edges,
                       mod_sum.depth_db - ref_sum.depth_db, sdd)
+
+
+def _dip_around(curve: np.ndarray, k: int, threshold_db: float) -> slice:
+    """The model's dip that answers the full-wave notch: from grid point ``k`` (the full-wave notch) downhill to
+    the nearest local minimum, widened to the local maxima on either side and to the whole run below
+    ``threshold_db`` it lies in (its stopband).  A row of staggered sizes has one dip per size and the deepest
+    may be another cell's in each curve; this compares the same cell's dip."""
+    while 0 < k < len(curve) - 1 and min(curve[k - 1], curve[k + 1]) < curve[k]:
+        k = k - 1 if curve[k - 1] < curve[k + 1] else k + 1
+    lo, hi = k, k
+    while lo > 0 and curve[lo - 1] >= curve[lo]:
+        lo -= 1
+    while hi < len(curve) - 1 and curve[hi + 1] >= curve[hi]:
+        hi += 1
+    while lo > 0 and curve[lo - 1] <= threshold_db:
+        lo -= 1
+    while hi < len(curve) - 1 and curve[hi + 1] <= threshold_db:
+        hi += 1
+    return slice(lo, hi + 1)
 
 
 def spec_for(folder: Path, name: str, samples: Path) -> Path:
