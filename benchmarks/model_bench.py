@@ -66,7 +66,7 @@ def main() -> None:
         print(f"{name:<22} {cold * 1e3:9.1f}ms {warm * 1e3:6.1f}ms {ref * 1e3:5.1f}ms {warm / ref:6.2f} "
               f"{all_corners:7.2f}s {all_corners / ref:6.0f}")
     print("4-port: 2,000 frequencies (target < 20 ms); corners: the nominal and 16 corners at the estimate's "
-          f"{rejection.POINTS} points, mixed-mode terms included (target < 0.5 s); ref: scikit-rf se2gmm of the "
+          f"{rejection.POINTS} points, the nominal's mixed-mode terms and each corner's Scc21 included (target < 0.5 s); ref: scikit-rf se2gmm of the "
           "2,000-point 4-port; ratio = time / ref")
 
 

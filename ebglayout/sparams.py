@@ -71,6 +71,15 @@ def mixed_mode(network, z0_diff_ohm: float | None = None, z0_comm_ohm: float | N
                      z0_diff_ohm=float(np.real(mm.z0[0, 0])), z0_comm_ohm=float(np.real(mm.z0[0, 2])))
 
 
+def common_through(s: np.ndarray) -> np.ndarray:
+    """Scc21 alone from single-ended S (F, 4, 4) in the project's port order, all ports of one real reference:
+    (S31 + S32 + S41 + S42) / 2, the mixed-mode definition (D. E. Bockelman and W. R. Eisenstadt, IEEE T-MTT
+    43(7), 1995; from memory) that ``mixed_mode`` gets from scikit-rf.  For the tolerance corners, which need
+    only this term: the full conversion costs far more than the model's solve."""
+    s = np.asarray(s)
+    return (s[:, 2, 0] + s[:, 2, 1] + s[:, 3, 0] + s[:, 3, 1]) / 2
+
+
 def touchstone_text(network, comments: list[str], r_ref: float | None = None) -> str:
     """The network as Touchstone 1.0 text (.s4p for a 4-port): header comments first, then scikit-rf's writer
     in real/imaginary form at fixed precision, without its version line, so the bytes depend on the data only.

@@ -19,7 +19,7 @@ import pytest
 import skrf
 
 from ebglayout.errors import EbgError
-from ebglayout.sparams import mixed_mode, touchstone_text, write_touchstone
+from ebglayout.sparams import common_through, mixed_mode, touchstone_text, write_touchstone
 
 FREQ = skrf.Frequency(1, 20, 39, "GHz")
 C0 = 299_792_458.0
@@ -84,6 +84,16 @@ def test_unbalanced_network_matches_the_mixed_mode_definitions():
     swapped = skrf.Network(frequency=FREQ, s=s[:, [1, 0, 3, 2]][:, :, [1, 0, 3, 2]], z0=50.0)
     np.testing.assert_allclose(mixed_mode(swapped).sdc21, -mm.sdc21, atol=1e-12)
     np.testing.assert_allclose(mixed_mode(swapped).scc21, mm.scc21, atol=1e-12)
+
+
+def test_common_through_is_scikit_rf_scc21():
+    """The corners' shortcut for Scc21 agrees with scikit-rf's full conversion (se2gmm) on an unbalanced,
+    non-reciprocal 4-port, at 50 ohm and at the model's own reference."""
+    rng = np.random.default_rng(5)
+    s = 0.4 * (rng.standard_normal((FREQ.npoints, 4, 4)) + 1j * rng.standard_normal((FREQ.npoints, 4, 4)))
+    for z0 in (50.0, 37.2):
+        expected = mixed_mode(skrf.Network(frequency=FREQ, s=s, z0=z0)).scc21
+        np.testing.assert_allclose(common_through(s), expected, rtol=0, atol=1e-12)
 
 
 def test_mixed_mode_needs_a_four_port():

@@ -1,7 +1,8 @@
-"""Regenerate the README's generated sections (spec keys, rule list) from the code.
+"""Regenerate the README's generated sections (spec keys, rule list, model versus full-wave) from the code.
 
 Run ``python tools/gen_docs.py`` after changing ebglayout/spec.py PARAMETERS or
-ebglayout/checks/rules.py RULES; tests/test_docs.py fails while they differ.
+ebglayout/checks/rules.py RULES, the rejection model or the stored full-wave references
+(tests/reference/fullwave/); tests/test_docs.py fails while they differ.
 """
 from __future__ import annotations
 
@@ -13,7 +14,10 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from ebglayout.checks.rules import RULES  # noqa: E402
+from ebglayout.estimate import accuracy  # noqa: E402
 from ebglayout.spec import PARAMETERS, REQUIRED  # noqa: E402
+
+REFERENCES = ROOT / "tests" / "reference" / "fullwave"
 
 
 def parameter_table() -> str:
@@ -31,7 +35,19 @@ def rule_table() -> str:
     return "\n".join(rows)
 
 
-SECTIONS = {"parameters": parameter_table, "rules": rule_table}
+def model_accuracy_table() -> str:
+    return accuracy.table([accuracy.compare(REFERENCES, name, accuracy.spec_for(REFERENCES, name, ROOT / "samples"))
+                           for name in accuracy.stored_cases(REFERENCES)])
+
+
+def model_misses() -> str:
+    stored = set(accuracy.stored_cases(REFERENCES))
+    return "\n".join(f"- `{name}`, {metric}: {why}." for (name, metric), why in sorted(accuracy.KNOWN_MISSES.items())
+                     if name in stored)
+
+
+SECTIONS = {"parameters": parameter_table, "rules": rule_table, "model-accuracy": model_accuracy_table,
+            "model-misses": model_misses}
 
 
 def render(text: str) -> str:

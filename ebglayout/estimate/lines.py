@@ -55,6 +55,8 @@ class CoupledLines:
     tan_d: float
     width_mm: float
     stripline: bool
+    copper_s_per_m: float | None = COPPER_S_PER_M
+    """Conductivity of the strips; None for perfect conductors (a full-wave run with lossless copper)."""
 
     @property
     def z_common(self) -> float:
@@ -75,7 +77,9 @@ class CoupledLines:
         else:
             alpha_d = k0 * self.er * (m.eeff - 1) * self.tan_d / (2 * math.sqrt(m.eeff) * (self.er - 1)) \
                 if self.er > 1 else k0 * 0.0
-        rs = np.sqrt(2 * np.pi * f * MU0 / (2 * COPPER_S_PER_M))
+        if self.copper_s_per_m is None:
+            return alpha_d + 1j * beta
+        rs = np.sqrt(2 * np.pi * f * MU0 / (2 * self.copper_s_per_m))
         alpha_c = rs / (m.z0 * self.width_mm * 1e-3)
         return alpha_d + alpha_c + 1j * beta
 
@@ -148,8 +152,9 @@ def stripline_single(w_mm: float, b_mm: float, er: float) -> Mode:
     return Mode(30 * math.pi / math.sqrt(er) * float(ellipk(k * k) / ellipk(1 - k * k)), er)
 
 
-def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float) -> CoupledLines:
-    """The pair's coupled-line modes over its cut plane(s): microstrip for one plane, stripline for two."""
+def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float, copper: bool = True) -> CoupledLines:
+    """The pair's coupled-line modes over its cut plane(s): microstrip for one plane, stripline for two;
+    ``copper`` False makes the strips perfect conductors."""
     planes = stackup.planes
     er, tan_d = planes[0].pair.er, planes[0].pair.tan_d
     if stackup.stripline:
@@ -157,5 +162,5 @@ def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float) -> CoupledL
     else:
         h = planes[0].pair.h
         even, odd = microstrip_coupled(width_mm / h, spacing_mm / h, er)
-    return CoupledLines(even, odd, er, tan_d, width_mm, stackup.stripline)
+    return CoupledLines(even, odd, er, tan_d, width_mm, stackup.stripline, COPPER_S_PER_M if copper else None)
 

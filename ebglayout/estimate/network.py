@@ -15,10 +15,20 @@ beyond, L = Z0_air l / c, with Z0_air the strip's impedance in air by Hammerstad
 height (the inductance per length of a strip over a plane, not the free-space bar).  A stripline pair sees its
 two cut planes' series elements in parallel (both return paths carry part of the current).
 
+The cavity's walls sit a little outside the drawn edge: the fringing field beyond the edge stores charge as if
+the patch were longer by the open-end extension dl on every side (E. O. Hammerstad, "Equations for microstrip
+circuit design", Proc. 5th European Microwave Conf., 1975, the form Balanis, Antenna Theory, 3rd ed., eq. 14-2,
+uses for the patch's effective length; from memory).  The modes are solved on the drawn polygon grown by dl
+(mitred corners), the ports stay on the drawn edge.
+
 Loss: dielectric loss of the lines and cavities from tan d; copper loss on the lines (``lines``) and in the
 cavities as an added loss tangent delta_s / h (the conductor Q of a thin cavity, Q_c = h / delta_s; C. A.
-Balanis, Antenna Theory, 3rd ed., sec. 14.2; from memory).  Left out, and said so in the docs: radiation, the
-slot's own gap capacitance and edge fringing (the ideal magnetic wall), the trace length over the slot as
+Balanis, Antenna Theory, 3rd ed., sec. 14.2; from memory), and radiation through the slots around the patch as
+one more, 1 / Q_rad (``radiation_tan_d``): a slot between patch and plane carries the cavity's edge voltage as a
+magnetic current over a ground plane, as a patch antenna's radiating edge does, so the patch antenna's
+radiation Q applies; the effective loss tangent 1 / Q is how Balanis (same section) puts every loss into the
+cavity model.  Left out, and said so in the docs: the slot's own gap capacitance to the plane around it, the
+plane around the cut as anything but the plane beyond (ideal stitching), the trace length over the slot as
 anything but line, the P/N length difference of a bend, and any resonance of the outer planes.
 
 Solved per frequency as one nodal admittance matrix (line sections, crossing branches) reduced to the four
@@ -26,6 +36,7 @@ ports in the project's order (``sparams``), then scikit-rf's Network.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -37,7 +48,7 @@ from ..crossing import TOUCH_MM
 from ..errors import EbgError
 from ..layout import Layout
 from ..stackup import Stackup
-from .cavity import C0, MU0, PortModes, port_modes
+from .cavity import C0, MU0, PortModes, own_frame, port_modes
 from .lines import COPPER_S_PER_M, CoupledLines, microstrip_single, pair_lines
 from .lumped import bridge_width
 
@@ -46,8 +57,9 @@ KEEP_FACTOR = 3.0
 """Modes up to this many times the highest wavenumber asked for are kept with their resonance; the rest enter
 as the quasi-static tail with its first frequency term (their error there is below (1 / 3)^4 = 1.2 % of their
 own small share)."""
-CHUNK = 256
-"""Frequencies solved together: the per-frequency matrices of a chunk stay in the processor's cache."""
+CHUNK = 2048
+"""Frequencies solved together.  Each chunk repeats the geometry work (groups, ports, cached modes), so chunks
+are large: a 2,000-point sweep is one (its matrices are a few MB)."""
 STATION_MM = 1e-4
 """Crossings of the two traces closer than this along the path share one station of the line model."""
 
@@ -64,11 +76,13 @@ class _Branch:
     bodies: tuple[str, str]
 
 
-def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z0_ohm: float | None = None):
+def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z0_ohm: float | None = None,
+                   copper: bool = True):
     """The filter as a scikit-rf 4-port (ports: P near, N near, P far, N far) at ``freq_hz`` (Hz, > 0).
 
     ``stackup`` overrides the layout's (for tolerance corners); ``z0_ohm`` is the reference impedance of every
-    port (default: sqrt(Z0e Z0o) of the pair, near a match for both modes).
+    port (default: sqrt(Z0e Z0o) of the pair, near a match for both modes); ``copper`` False makes every
+    conductor perfect, as in a full-wave run with lossless copper (the only fair comparison with one).
     """
     import skrf
 
@@ -77,13 +91,24 @@ def filter_network(layout: Layout, freq_hz, *, stackup: Stackup | None = None, z
         raise EbgError("freq_hz: must be a non-empty list of finite frequencies > 0")
     stackup = stackup or layout.stackup
     spec = layout.spec
-    lines = pair_lines(stackup, spec.pair_width, spec.pair_spacing)
+    lines = pair_lines(stackup, spec.pair_width, spec.pair_spacing, copper)
     z0 = z0_ohm if z0_ohm is not None else math.sqrt(lines.even.z0 * lines.odd.z0)
-    y = np.concatenate([port_admittance(layout, freq[k:k + CHUNK], stackup, lines)
-                        for k in range(0, len(freq), CHUNK)])
+    with _blas().limit(limits=1, user_api="blas"):
+        y = np.concatenate([port_admittance(layout, freq[k:k + CHUNK], stackup, lines)
+                            for k in range(0, len(freq), CHUNK)])
     eye = np.eye(4)[None]
     s = np.linalg.solve(eye + z0 * y, eye - z0 * y)
     return skrf.Network(frequency=skrf.Frequency.from_f(freq, unit="hz"), s=s, z0=z0, name=spec.name)
+
+
+@functools.cache
+def _blas():
+    """threadpoolctl's handle on the loaded BLAS.  The model's matrices are a few ports across, far too small for
+    threads: a threaded BLAS spends longer waking and syncing its threads than computing (measured 3.4 times
+    slower on 2 busy cores), so the solve runs the BLAS on one thread."""
+    from threadpoolctl import ThreadpoolController
+
+    return ThreadpoolController()
 
 
 def port_admittance(layout: Layout, freq: np.ndarray, stackup: Stackup, lines: CoupledLines) -> np.ndarray:
@@ -179,7 +204,7 @@ def _group_transfer(layout: Layout, branches: list[_Branch], freq: np.ndarray, s
         to_slot = np.zeros((len(mine), count))
         for k, b in enumerate(mine):
             to_slot[k, slot_of[station_of[round(b.s / STATION_MM)], b.trace]] = 1.0
-        z_layer = _branch_impedance(layout, mine, freq, stackup)
+        z_layer = _branch_impedance(layout, mine, freq, stackup, lines.copper_s_per_m is not None)
         if len(layers) == 1 and np.all(to_slot.sum(axis=0) == 1):  # one plane: the crossings are the slots
             z_slots = to_slot.T @ z_layer @ to_slot
         else:
@@ -187,22 +212,26 @@ def _group_transfer(layout: Layout, branches: list[_Branch], freq: np.ndarray, s
     if z_slots is None:
         z_slots = np.linalg.inv(y_slots)
     positions = [k * STATION_MM for k in sorted(station_of)]
-    state_x = np.broadcast_to(np.eye(4, dtype=complex), (n_freq, 4, 4)).copy()
-    state_i = np.zeros((n_freq, 4, count), dtype=complex)
+    # the state in terms of [start state | crossing currents]: one product per line section carries both
+    state = np.zeros((n_freq, 4, 4 + count), dtype=complex)
+    state[:, :, :4] = np.eye(4)
     lhs = np.zeros((n_freq, count, count), dtype=complex)
     rhs = np.zeros((n_freq, count, 4), dtype=complex)
+    steps: dict[int, np.ndarray] = {}
     for station, at in enumerate(positions):
         if station:
-            step = section_transfer(lines, freq, -(at - positions[station - 1]) * 1e-3)
-            state_x, state_i = step @ state_x, step @ state_i
+            gap = round((at - positions[station - 1]) / STATION_MM)
+            if gap not in steps:
+                steps[gap] = section_transfer(lines, freq, -gap * STATION_MM * 1e-3)
+            state = steps[gap] @ state
         here = [(slot_of[station, t], t) for t in (0, 1) if (station, t) in slot_of]
         for j, t in here:
-            lhs[:, j, :] = -state_i[:, 2 + t, :]
+            lhs[:, j, :] = -state[:, 2 + t, 4:]
             lhs[:, j, j] += 1.0
-            rhs[:, j, :] = state_x[:, 2 + t, :]
+            rhs[:, j, :] = state[:, 2 + t, :4]
         for j, t in here:
-            state_i[:, t, :] -= z_slots[:, j, :]
-    forward = state_x + state_i @ np.linalg.solve(lhs, rhs)
+            state[:, t, 4:] -= z_slots[:, j, :]
+    forward = state[:, :, :4] + state[:, :, 4:] @ np.linalg.solve(lhs, rhs)
     return np.linalg.inv(forward)
 
 
@@ -246,8 +275,10 @@ def _branches(layout: Layout) -> list[_Branch]:
     return out
 
 
-def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray, stackup: Stackup) -> np.ndarray:
-    """Series impedance matrix (F, B, B) of one cut plane's crossings: sum over patches of sign x cavity Z x sign."""
+def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray, stackup: Stackup,
+                      copper: bool) -> np.ndarray:
+    """Series impedance matrix (F, B, B) of one cut plane's crossings: sum over patches of sign x cavity Z x sign
+    (``copper`` False: perfect conductors)."""
     cut = layout.cut(branches[0].layer)
     plane = next(p for p in stackup.planes if p.layer == cut.layer)
     cavity = plane.cavity
@@ -263,14 +294,43 @@ def _branch_impedance(layout: Layout, branches: list[_Branch], freq: np.ndarray,
         ties = [g for g in bridges if g.distance(patch) < TOUCH_MM]
         segments = [_edge_port(patch, branches[k].point, branches[k].width) for k, _ in on]
         segments += [_tie_port(patch, g) for g in ties]
-        modes = _cached_modes(patch, segments, k_keep)
-        z_cav = modes.impedance(freq, cavity.er, cavity.h, cavity.tan_d + _copper_tan_d(freq, cavity.h))
+        grown = patch.buffer(edge_extension(patch, cavity.h, cavity.er), join_style="mitre")
+        modes = _cached_modes(grown, segments, k_keep)
+        copper_tan_d = _copper_tan_d(freq, cavity.h) if copper else 0.0
+        loss = cavity.tan_d + copper_tan_d + radiation_tan_d(patch, freq, cavity.h, cavity.er)
+        z_cav = modes.impedance(freq, cavity.er, cavity.h, loss)
         z_cav = _tie_bridges(z_cav, len(on), [_bridge_inductance(g, layout.spec.bridge_length, cavity.h)
                                                for g in ties], freq)
         idx = [k for k, _ in on]
         sign = np.array([s for _, s in on])
         z[:, np.ix_(idx, idx)[0], np.ix_(idx, idx)[1]] += z_cav * np.outer(sign, sign)[None]
     return z
+
+
+def edge_extension(patch: Polygon, h_mm: float, er: float) -> float:
+    """Open-end extension dl (mm) of the patch's edges, Hammerstad's form (see the module docstring):
+    dl / h = 0.412 (eeff + 0.3) (W/h + 0.264) / ((eeff - 0.258) (W/h + 0.8)), W the patch's narrower side
+    (for the patches drawn here W >> h, where dl barely depends on W), eeff Hammerstad and Jensen's at W/h."""
+    rect = own_frame(patch).bounds
+    u = min(rect[2], rect[3]) / h_mm
+    eeff = microstrip_single(u, er).eeff
+    return h_mm * 0.412 * (eeff + 0.3) * (u + 0.264) / ((eeff - 0.258) * (u + 0.8))
+
+
+def radiation_tan_d(patch: Polygon, freq: np.ndarray, h_mm: float, er: float) -> np.ndarray:
+    """Radiation through the slots around a patch as an added loss tangent 1 / Q_rad (see the module docstring).
+
+    Q_rad = 3 er L / (16 p c1 W) x lambda0 / h, c1 = 1 - 1/er + 2 / (5 er^2), p = 1 - 0.16605 (k0 W)^2 / 20
+    + 0.00761 x 3 (k0 W)^4 / 560 - 0.0914153 (k0 L)^2 / 5: D. R. Jackson and N. G. Alexopoulos, "Simple
+    approximate formulas for input resistance, bandwidth, and efficiency of a resonant rectangular patch",
+    IEEE Trans. AP 39(3), 1991 (from memory), for the mode along the long side L of the patch's rectangle.
+    """
+    _, _, length, width = own_frame(patch).bounds
+    k0 = 2 * np.pi * freq / C0 * 1e-3  # 1/mm
+    c1 = 1 - 1 / er + 2 / (5 * er ** 2)
+    p = 1 - 0.16605 * (k0 * width) ** 2 / 20 + 0.00761 * 3 * (k0 * width) ** 4 / 560 - 0.0914153 * (k0 * length) ** 2 / 5
+    q_rad = 3 * er * length / (16 * p * c1 * width) * (2 * np.pi / k0) / h_mm
+    return 1 / q_rad
 
 
 def _copper_tan_d(freq: np.ndarray, h_mm: float) -> np.ndarray:

@@ -17,7 +17,7 @@ import numpy as np
 from ..errors import EbgError
 from ..layout import Layout, build_layout
 from ..response import corners_json, db20, response_json
-from ..sparams import mixed_mode
+from ..sparams import common_through, mixed_mode
 from ..stackup import CutPlaneStack, Dielectric, Stackup
 from .network import SOURCE, filter_network
 
@@ -117,7 +117,7 @@ def _solve(layout: Layout, freq_hz: np.ndarray, corners: bool, etch: bool) -> Re
                             1 + r_pair * spec.h_tolerance)
             label = f"er{'-+'[r_er > 0]} h{'-+'[r_h > 0]} pair_h{'-+'[r_pair > 0]}"
             label += f" etch{'-+'[sign > 0]}" if sign else ""
-            curves[label] = db20(mixed_mode(filter_network(lay, freq_hz, stackup=stack)).scc21)
+            curves[label] = db20(common_through(filter_network(lay, freq_hz, stackup=stack).s))
     tolerances = {"er": spec.er_tolerance, "h": spec.h_tolerance, "pair_h": spec.h_tolerance, "etch_mm": etch,
                   "etch_corners_not_built": skipped}
     return Rejection(np.asarray(freq_hz, dtype=float), nominal, curves, spec.target_hz, spec.rejection_db,
