@@ -90,6 +90,7 @@ def _parser() -> argparse.ArgumentParser:
                    "target, with room for the pair, and check the cell (without it: the formula's size)")
     p.add_argument("--pair-h", help="with --pair: dielectric between the pair and the cut plane (default --h)")
     p.add_argument("--count", type=int, default=3, help="with --pair: cells in the modelled row (default 3)")
+    p.add_argument("--passes", type=int, help="with --pair, folded: an odd number of passes of the pair over the row (default 3)")
     p.add_argument("--tan-d", type=float, default=0.02, help="with --pair: loss tangent (default 0.02)")
     p.add_argument("--band", help="with --pair and --reject: the band to reject, LOW..HIGH (15.9GHz..16.1GHz) or "
                    "CENTRE+-SPREAD (16GHz+-1%%, 16GHz+-0.2GHz); proposes the cell count and staggered sizes")
@@ -419,7 +420,7 @@ def _size(args) -> int:
     if len(parts) != 2:
         raise EbgError(f"--pair = {args.pair}: must be WIDTH,SPACING, lengths in {args.units} unless they say")
     pair = (parse_length(parts[0], "--pair width", args.units), parse_length(parts[1], "--pair spacing", args.units))
-    row = dict(style=args.style, h=sizes["h"], bridge=bridge, slot=sizes["slot"], tan_d=args.tan_d,
+    row = dict(style=args.style, h=sizes["h"], bridge=bridge, slot=sizes["slot"], tan_d=args.tan_d, passes=args.passes,
                pair_h=parse_length(args.pair_h, "--pair-h", args.units) if args.pair_h else None)
     if args.band:
         from .estimate.sizing import format_band_sizing, size_for_band

@@ -225,11 +225,11 @@ MODEL_TOLERANCE = 0.002
 def size_with_model(target_hz: float, er: float, pair: tuple[float, float], style: str = "straight",
                     aspect: float = DEFAULT_ASPECT, h: float = 0.1, pair_h: float | None = None,
                     bridge: tuple[float, float, int] | None = None, slot: float = 0.15, count: int = 3,
-                    tan_d: float = 0.02, corner_margin: float = 0.4) -> dict:
+                    tan_d: float = 0.02, corner_margin: float = 0.4, passes: int | None = None) -> dict:
     """Patch [along, across] (mm) whose notch in the circuit model (``rejection``) lands on ``target_hz``.
 
-    ``pair`` = (width, spacing) of the traces: the across size is at least what keeps both traces
-    ``corner_margin`` from the patch corners.  Starts from ``size_for_target`` (the cavity or LC formula), then
+    ``pair`` = (width, spacing) of the traces: the across size is at least what keeps both traces of every pass
+    (folded: ``passes``, default 3, at the default lane gap) ``corner_margin`` from the patch corners.  Starts from ``size_for_target`` (the cavity or LC formula), then
     builds a row of ``count`` cells on a straight pair over one cut plane (pair height ``pair_h``, default
     ``h``, loss tangent ``tan_d``), reads the model's Scc21 notch and corrects the along size by the secant
     method on log(size) against log(notch) until within ``MODEL_TOLERANCE``.  The result is checked with the
@@ -242,12 +242,14 @@ def size_with_model(target_hz: float, er: float, pair: tuple[float, float], styl
 
     width, spacing = pair
     _check(pair_width=width, pair_spacing=spacing, tan_d=tan_d + 1.0)
-    across_min = 2 * (width + spacing / 2 + corner_margin)
+    passes = _passes(style, passes)
+    pitch = 2 * width + spacing + max(3 * width, 2 * spacing)  # the spec's default lane gap
+    across_min = 2 * width + spacing + (passes - 1) * pitch + 2 * corner_margin
     first = size_for_target(target_hz, er, style, aspect, h, bridge, slot if bridge else None)
     along, across = first["patch"]
     across = max(across, across_min)
     row = dict(target_hz=target_hz, er=er, pair=pair, style=style, h=h, pair_h=pair_h, bridge=bridge, slot=slot,
-               tan_d=tan_d)
+               tan_d=tan_d, passes=passes)
 
     def build(along_mm: float):
         return build_layout(spec_from_dict(row_spec([[along_mm, across]] * count, **row)))
@@ -261,6 +263,8 @@ def size_with_model(target_hz: float, er: float, pair: tuple[float, float], styl
     out = _result(style, target_hz, er, (along, across), cell)
     out.update({"formula_hz": _hz(cell.notch_hz), "model_hz": _hz(notch), "pair": [width, spacing],
                 "count": count, "iterations": iterations, "tan_d": tan_d, "pair_h_mm": pair_h or h})
+    if style == "folded":
+        out["passes"] = passes
     if bridge is not None:
         out.update({"h_mm": h, "bridge": {"width": bridge[0], "length": bridge[1], "per_side": bridge[2],
                                           "slot": slot}, "lc_f_hz": _hz(cell.lc_f_hz)})
@@ -270,7 +274,7 @@ def size_with_model(target_hz: float, er: float, pair: tuple[float, float], styl
 def row_spec(patches: list, *, target_hz: float, er: float, pair: tuple[float, float], style: str = "straight",
              h: float = 0.1, pair_h: float | None = None, bridge: tuple[float, float, int] | None = None,
              slot: float = 0.15, tan_d: float = 0.02, tolerances: dict | None = None, rules: dict | None = None,
-             name: str = "sized") -> dict:
+             passes: int | None = None, name: str = "sized") -> dict:
     """A spec (mm) of one row of ``patches`` ([along, across] each, rounded to 1 um: what a fab drawing holds, and
     odd-nm sizes let neighbouring webs round 1 nm short) on a straight pair over one cut plane: what sizing
     models and checks.  ``tolerances`` may set er_tolerance, h_tolerance and etch_tolerance, ``rules`` the
@@ -278,6 +282,8 @@ def row_spec(patches: list, *, target_hz: float, er: float, pair: tuple[float, f
     cut = {"style": style, "patches": [[round(a, 3), round(b, 3)] for a, b in patches], "slot": slot, "web": 0.3}
     if bridge is not None:
         cut["bridge"] = {"width": bridge[0], "length": bridge[1], "per_side": bridge[2]}
+    if style == "folded":
+        cut["passes"] = _passes(style, passes)
     run = sum(a + slot + 0.3 for a, _ in patches) + 10.0
     return {"name": name, "target": target_hz,
             "pair": {"width": pair[0], "spacing": pair[1], "path": [[0, 0], [round(run, 6), 0]]},
@@ -314,6 +320,20 @@ def _land_on_model_notch(build, size: float, target_hz: float) -> tuple[float, f
     return points[-1][0], points[-1][1], len(points), layout
 
 
+def _passes(style: str, passes: int | None) -> int:
+    """Passes of the pair over the row: 1 unless folded (default 3, the fewest a fold the engine generates from
+    a straight route makes: it needs an odd count to leave in the original direction)."""
+    if style != "folded":
+        if passes not in (None, 1):
+            raise SpecError("cut.passes", passes, f"only the folded style takes passes (style is {style!r})")
+        return 1
+    if passes is None:
+        return 3
+    if isinstance(passes, bool) or not isinstance(passes, int) or not 3 <= passes <= 19 or passes % 2 == 0:
+        raise SpecError("cut.passes", passes, "folded: must be an odd whole number from 3 to 19")
+    return passes
+
+
 def _must_pass_checks(layout, pair) -> None:
     from ..checks import run_checks
 
@@ -334,7 +354,7 @@ def size_for_band(low_hz: float, high_hz: float, depth_db: float, er: float, pai
                   style: str = "straight", aspect: float = DEFAULT_ASPECT, h: float = 0.1,
                   pair_h: float | None = None, bridge: tuple[float, float, int] | None = None, slot: float = 0.15,
                   tan_d: float = 0.02, tolerances: dict | None = None, max_cells: int = 16,
-                  max_sizes: int = 4) -> dict:
+                  max_sizes: int = 4, passes: int | None = None) -> dict:
     """The fewest cells (then the fewest sizes) whose modelled Scc21 is at or below -``depth_db`` from
     ``low_hz`` to ``high_hz`` at every tolerance corner (``rejection.model_rejection``: er, h, pair_h, etch).
 
@@ -356,10 +376,10 @@ def size_for_band(low_hz: float, high_hz: float, depth_db: float, er: float, pai
         if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value <= most:
             raise EbgError(f"{key} = {value!r}: must be a whole number from 1 to {most}")
     centre = (low_hz + high_hz) / 2
-    base = size_with_model(centre, er, pair, style, aspect, h, pair_h, bridge, slot, 3, tan_d)
+    base = size_with_model(centre, er, pair, style, aspect, h, pair_h, bridge, slot, 3, tan_d, passes=passes)
     along, across = base["patch"]
     row = dict(target_hz=centre, er=er, pair=pair, style=style, h=h, pair_h=pair_h, bridge=bridge, slot=slot,
-               tan_d=tan_d, tolerances=tolerances,
+               tan_d=tan_d, tolerances=tolerances, passes=passes,
                rules={"rejection_db": -depth_db, "target_margin": round((high_hz - low_hz) / (high_hz + low_hz), 9)})
     band = np.linspace(low_hz, high_hz, BAND_POINTS)
     tried: dict[tuple, tuple] = {}
