@@ -91,3 +91,41 @@ def test_size_band_command_exit_codes_and_one_line_errors(capsys):
         assert main(trial) == 2
         err = capsys.readouterr().err
         assert says in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("name, observed_ratio, keep", [("hx2_l0_tx_straight", 0.95, "across"),
+                                                        ("hx2_l2_tx_bridged", 1.06, "aspect")])
+def test_refine_through_the_model_carries_its_error_to_the_new_size(name, observed_ratio, keep):
+    """The model's notch of the re-sized spec sits where the observed error says it must: f_target x f_model /
+    f_obs, computed here from the model's network directly; a cavity mode scales as 1 / size, so the common
+    factor is near f_obs / f_target (within the model's departure from that law, 3 % here)."""
+    import copy
+
+    from ebglayout.bundled import sample_specs
+    from ebglayout.estimate.network import filter_network
+    from ebglayout.estimate.sizing import MODEL_TOLERANCE, refine
+    from ebglayout.response import db20, summarize
+    from ebglayout.sparams import mixed_mode
+    from ebglayout.spec import load_spec
+
+    spec = load_spec(next(p for p in sample_specs() if p.stem == name))
+    target = spec.target_hz
+
+    def notch(layout):
+        freq = np.linspace(0.6 * target, 1.4 * target, 1001)
+        return summarize(freq, db20(mixed_mode(filter_network(layout, freq)).scc21)).notch_hz
+
+    before = notch(build_layout(spec))
+    out = refine(spec, observed_ratio * target, keep=keep)
+    raw = copy.deepcopy(spec.echo)
+    raw["cut"].pop("patch", None)
+    raw["cut"].pop("count", None)
+    raw["cut"]["patches"] = out["patches"]
+    after = notch(build_layout(spec_from_dict(raw)))
+    goal = target * before / (observed_ratio * target)
+    assert after == pytest.approx(goal, rel=2 * MODEL_TOLERANCE)
+    assert out["model"]["goal_hz"] == pytest.approx(goal, abs=1e3)
+    for (a, b), (new_a, new_b) in zip(spec.patches, out["patches"]):
+        assert new_a / a == pytest.approx(observed_ratio, rel=0.03)
+        assert new_b / b == pytest.approx(observed_ratio if keep == "aspect" else 1.0, rel=0.03 if keep == "aspect" else 1e-9)
+    assert out["check_errors"] == []
