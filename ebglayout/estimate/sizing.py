@@ -17,6 +17,7 @@ import numpy as np
 
 from ..cells.bridged import bridged_cell
 from ..cells.shape import rectangle
+from .. import CAUTION as COMPLIANCE_CAUTION
 from ..errors import EbgError, SpecError
 from ..layout import PlacedCell
 from ..spec import STYLES, FilterSpec
@@ -220,6 +221,7 @@ def format_sizing(result: dict, units: str = "mm") -> str:
             lines.append(f"note: the patch is wider across than along; its across mode ({across_hz / 1e9:.4g} GHz) "
                          "is not excited by the common mode but costs the differential signal there (see Sdd21 in "
                          "estimate)")
+        lines.append(FULL_WAVE_NOTE)
     lines.append(f'paste into the spec\'s [cut] table (units = "{units}"):')
     lines.append(f"patch = {_spec_pair(result['patch'], units)}")
     lines.append(f"caution: {result['caution']}")
@@ -246,6 +248,7 @@ def format_refine(result: dict, units: str = "mm") -> str:
         was = result["formula"]["cells"][i]
         lines.append(f"  cell {i}: patch {a} along x {b} across (formula alone: {format_length(was['patch'][0], units)}"
                      f" x {format_length(was['patch'][1], units)}, designed for {was['design_hz'] / 1e9:.4g} GHz)")
+    lines.append(FULL_WAVE_NOTE)
     if result["check_errors"]:
         lines.append(f"warning: the re-sized filter fails the checks {', '.join(result['check_errors'])}; run check "
                      "on the pasted spec")
@@ -258,6 +261,9 @@ def format_refine(result: dict, units: str = "mm") -> str:
 def _spec_pair(mm: list, units: str) -> str:
     return "[" + ", ".join(spec_number(v, units) for v in mm) + "]"
 
+
+FULL_WAVE_NOTE = ("how far the model sits from full-wave runs of stored cases: the README's table under "
+                  "*The rejection model*")
 
 MODEL_TOLERANCE = 0.002
 """``size_with_model`` and ``refine`` stop when the modelled notch is this close to the target (relative)."""
@@ -282,7 +288,9 @@ def size_with_model(target_hz: float, er: float, pair: tuple[float, float], styl
     from ..spec import spec_from_dict
 
     width, spacing = pair
-    _check(pair_width=width, pair_spacing=spacing, tan_d=tan_d + 1.0)
+    _check(pair_width=width, pair_spacing=spacing)
+    if isinstance(tan_d, bool) or not isinstance(tan_d, (int, float)) or not 0 <= tan_d < 1:
+        raise EbgError(f"tan_d = {tan_d!r}: must be a number from 0 to below 1")
     passes = _passes(style, passes)
     pitch = 2 * width + spacing + max(3 * width, 2 * spacing)  # the spec's default lane gap
     across_min = 2 * width + spacing + (passes - 1) * pitch + 2 * corner_margin
@@ -471,7 +479,8 @@ def size_for_band(low_hz: float, high_hz: float, depth_db: float, er: float, pai
             "tolerances": model["tolerances"], "notch_spread_hz": model["notch_spread_hz"],
             "guaranteed_stopband_hz": model["tolerance"]["guaranteed_stopband_hz"],
             "nominal_scc21": model["scc21"], "pair": list(pair), "tan_d": tan_d, "pair_h_mm": pair_h or h,
-            "centre_patch": base["patch"], "model_caution": model["model_caution"], "caution": CAUTION}
+            "centre_patch": base["patch"], "model_caution": model["model_caution"],
+            "caution": f"{CAUTION}; {COMPLIANCE_CAUTION}"}
 
 
 def format_band_sizing(result: dict, units: str = "mm") -> str:
@@ -479,25 +488,25 @@ def format_band_sizing(result: dict, units: str = "mm") -> str:
     lines to paste into a spec whose units are ``units`` (its target, [cut] and [rules] tables)."""
     low, high = result["band_hz"]
     band = f"{low / 1e9:.4g}-{high / 1e9:.4g} GHz"
-    corners = len(result["tolerances"]) and "every tolerance corner"
     kind = "one size" if result["sizes"] == 1 else (f"{result['sizes']} staggered sizes, notches "
                                                      f"{100 * result['stagger_step']:g} % apart")
     if result["met"]:
-        lines = [f"meets {result['depth_db']:g} dB of common-mode rejection over {band} at {corners} in the circuit "
+        lines = [f"meets {result['depth_db']:g} dB of common-mode rejection over {band} at every tolerance corner in the circuit "
                  f"model: {result['count']} cells, {kind} (worst in band {result['worst_in_band_db']:g} dB)"]
     else:
         lines = [f"no design within {result['limits']['max_cells']} cells and {result['limits']['max_sizes']} "
-                 f"sizes meets {result['depth_db']:g} dB over {band} at {corners} in the circuit model; the best "
+                 f"sizes meets {result['depth_db']:g} dB over {band} at every tolerance corner in the circuit model; the best "
                  f"found: {result['count']} cells, {kind}, worst in band {result['worst_in_band_db']:g} dB, "
                  f"short by {result['shortfall_db']:g} dB"]
     tol = result["tolerances"]
     guaranteed = ", ".join(f"{a / 1e9:.4g}-{b / 1e9:.4g} GHz" for a, b in result["guaranteed_stopband_hz"]) or "none"
     nominal = result["nominal_scc21"]
     lines.append(f"model (not a full-wave run): nominal notch {nominal['notch_hz'] / 1e9:.4g} GHz at "
-                 f"{nominal['depth_db']:g} dB; notch spread {result['notch_spread_hz'][0] / 1e9:.4g}-"
+                 f"{nominal['depth_db']:.1f} dB; notch spread {result['notch_spread_hz'][0] / 1e9:.4g}-"
                  f"{result['notch_spread_hz'][1] / 1e9:.4g} GHz and guaranteed stopband at -{result['depth_db']:g} "
                  f"dB {guaranteed} over er +-{tol['er']:.1%}, h and pair_h +-{tol['h']:.1%}, etch "
                  f"+-{format_length(tol['etch_mm'], units)}")
+    lines.append(FULL_WAVE_NOTE)
     centre = (low + high) / 2
     paste = [f'target = "{centre / 1e9:.12g}GHz"', "[cut]"]
     if result["sizes"] == 1:
