@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
 from pathlib import Path
 
@@ -15,7 +16,7 @@ EXAMPLES = {
     "build": "ebglayout build samples/hx2_l0_tx_straight.toml --out out/",
     "check": "ebglayout check samples/hx2_l0_tx_straight.toml --json",
     "estimate": "ebglayout estimate samples/hx2_l2_tx_bridged.toml",
-    "size": "ebglayout size --target 8GHz --er 4.1 --h 0.1 --style bridged --bridge 0.12,0.6",
+    "size": "ebglayout size --band 16GHz+-0.5% --reject 10dB --er 4.1 --pair 0.12,0.15",
     "refine": "ebglayout refine samples/hx2_l0_tx_straight.toml --observed 15.2GHz",
     "fullwave": "ebglayout fullwave samples/hx2_l0_tx_straight.toml --out out/ --preset fast",
     "params": "ebglayout params --markdown",
@@ -78,7 +79,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true", help="replace existing outputs")
 
     p = command("size", "first-pass patch size for a target notch")
-    p.add_argument("--target", required=True, help='frequency ("8GHz") or NRZ data rate ("16Gbps")')
+    p.add_argument("--target", help='frequency ("8GHz") or NRZ data rate ("16Gbps"); not with --band')
     p.add_argument("--er", type=float, required=True, help="dielectric constant between cut plane and next plane")
     p.add_argument("--h", default="0.1mm", help="that dielectric's thickness (default 0.1 mm)")
     p.add_argument("--style", choices=("straight", "folded", "bridged"), default="straight")
@@ -88,6 +89,14 @@ def _parser() -> argparse.ArgumentParser:
                    "target, with room for the pair, and check the cell (without it: the formula's size)")
     p.add_argument("--pair-h", help="with --pair: dielectric between the pair and the cut plane (default --h)")
     p.add_argument("--count", type=int, default=3, help="with --pair: cells in the modelled row (default 3)")
+    p.add_argument("--passes", type=int, help="with --pair, folded: an odd number of passes of the pair over the row (default 3)")
+    p.add_argument("--tan-d", type=float, default=0.02, help="with --pair: loss tangent (default 0.02)")
+    p.add_argument("--band", help="with --pair and --reject: the band to reject, LOW..HIGH (15.9GHz..16.1GHz) or "
+                   "CENTRE+-SPREAD (16GHz+-1%%, 16GHz+-0.2GHz); proposes the cell count and staggered sizes")
+    p.add_argument("--reject", help="with --band: the rejection every tolerance corner must reach over it, in dB "
+                   "(10 or 10dB: Scc21 at or below -10 dB)")
+    p.add_argument("--max-cells", type=int, default=16, help="with --band: most cells to try (default 16)")
+    p.add_argument("--max-sizes", type=int, default=4, help="with --band: most staggered sizes to try (default 4)")
     p.add_argument("--units", default="mm", choices=sorted(LENGTH_UNITS_MM),
                    help="unit of bare lengths given here and of every length printed (default mm)")
     p.add_argument("--json", action="store_true", help="print JSON")
@@ -393,25 +402,77 @@ def _size(args) -> int:
     sizes = {k: parse_length(v, f"--{k}", args.units) for k, v in (("h", args.h), ("slot", args.slot))}
     if min(sizes.values()) <= 0:
         raise EbgError(f"--h = {args.h}, --slot = {args.slot}: both must be > 0")
-    target = parse_frequency(args.target, "--target")
-    if args.pair:
-        from .estimate.sizing import size_with_model
+    if (args.band is None) == (args.target is None):
+        raise EbgError(f"--target = {args.target}, --band = {args.band}: give exactly one of them")
+    if (args.band is None) != (args.reject is None):
+        raise EbgError(f"--reject = {args.reject}: goes with --band (a band to reject by that many dB), not alone")
+    if not 0 <= args.tan_d < 1:
+        raise EbgError(f"--tan-d = {args.tan_d:g}: must be from 0 to below 1")
+    if not args.pair:
+        if args.band:
+            raise EbgError("--pair = (missing): --band sizes with the circuit model, which needs --pair WIDTH,SPACING")
+        result = size_for_target(parse_frequency(args.target, "--target"), args.er, style=args.style, h=sizes["h"],
+                                 bridge=bridge, slot=sizes["slot"])
+        print(json.dumps(result, indent=2) if args.json else format_sizing(result, args.units))
+        return 0
+    parts = args.pair.split(",")
+    if len(parts) != 2:
+        raise EbgError(f"--pair = {args.pair}: must be WIDTH,SPACING, lengths in {args.units} unless they say")
+    pair = (parse_length(parts[0], "--pair width", args.units), parse_length(parts[1], "--pair spacing", args.units))
+    row = dict(style=args.style, h=sizes["h"], bridge=bridge, slot=sizes["slot"], tan_d=args.tan_d, passes=args.passes,
+               pair_h=parse_length(args.pair_h, "--pair-h", args.units) if args.pair_h else None)
+    if args.band:
+        from .estimate.sizing import format_band_sizing, size_for_band
 
-        parts = args.pair.split(",")
-        if len(parts) != 2:
-            raise EbgError(f"--pair = {args.pair}: must be WIDTH,SPACING, lengths in {args.units} unless they say")
-        pair = (parse_length(parts[0], "--pair width", args.units), parse_length(parts[1], "--pair spacing",
-                                                                                  args.units))
-        pair_h = parse_length(args.pair_h, "--pair-h", args.units) if args.pair_h else None
-        if not 1 <= args.count <= 50:
-            raise EbgError(f"--count = {args.count}: must be between 1 and 50")
-        result = size_with_model(target, args.er, pair, style=args.style, h=sizes["h"], pair_h=pair_h,
-                                 bridge=bridge, slot=sizes["slot"], count=args.count)
-    else:
-        result = size_for_target(target, args.er, style=args.style, h=sizes["h"], bridge=bridge,
-                                 slot=sizes["slot"])
+        low, high = _band(args.band)
+        result = size_for_band(low, high, _decibels(args.reject), args.er, pair, max_cells=args.max_cells,
+                               max_sizes=args.max_sizes, **row)
+        print(json.dumps(result, indent=2) if args.json else format_band_sizing(result, args.units))
+        return 0 if result["met"] else 1
+    from .estimate.sizing import size_with_model
+
+    if not 1 <= args.count <= 50:
+        raise EbgError(f"--count = {args.count}: must be between 1 and 50")
+    result = size_with_model(parse_frequency(args.target, "--target"), args.er, pair, count=args.count, **row)
     print(json.dumps(result, indent=2) if args.json else format_sizing(result, args.units))
     return 0
+
+
+def _band(text: str) -> tuple[float, float]:
+    """--band LOW..HIGH or CENTRE+-SPREAD (SPREAD a frequency or a percentage of CENTRE), in Hz."""
+    from .units import parse_frequency
+
+    if ".." in text:
+        low, high = (parse_frequency(v.strip(), "--band") for v in text.split("..", 1))
+    elif "+-" in text:
+        centre_text, spread_text = (v.strip() for v in text.split("+-", 1))
+        centre = parse_frequency(centre_text, "--band")
+        if spread_text.endswith("%"):
+            try:
+                spread = centre * float(spread_text[:-1]) / 100
+            except ValueError:
+                raise EbgError(f"--band = {text}: the spread {spread_text!r} must be a number with % or a "
+                               "frequency") from None
+        else:
+            spread = parse_frequency(spread_text, "--band")
+        low, high = centre - spread, centre + spread
+    else:
+        raise EbgError(f"--band = {text}: must be LOW..HIGH (15.9GHz..16.1GHz) or CENTRE+-SPREAD (16GHz+-1%)")
+    if not 0 < low < high:
+        raise EbgError(f"--band = {text}: needs 0 < low < high")
+    return low, high
+
+
+def _decibels(text: str) -> float:
+    """--reject 10 or 10dB: a rejection depth in dB, > 0 and at most 100."""
+    number = text.strip().lower().removesuffix("db").strip()
+    try:
+        value = float(number)
+    except ValueError:
+        value = math.nan
+    if not 0 < value <= 100:
+        raise EbgError(f"--reject = {text}: must be a depth in dB above 0 and at most 100, e.g. 10 or 10dB")
+    return value
 
 
 def _bridge(text: str, units: str) -> tuple[float, float, int]:

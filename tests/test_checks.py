@@ -267,6 +267,25 @@ def test_notch_target_without_estimate_uses_the_cavity_formula():
     assert off[0].value == pytest.approx(100 * (299792458 / (2 * 3e-3 * 2) / 12e9 - 1), rel=1e-6)
 
 
+def test_notch_target_light_check_holds_the_target_within_target_tolerance_of_the_notch_spread():
+    """The light check (an estimate without the model, as board re-checks make): the target against the spread of
+    the cells' f10 = c / (2 a sqrt(er)) over er +-5 % and h (Pozar, Microwave Engineering, 4th ed., sec. 9.7, from
+    memory): a = 3 mm, er = 4 gives 24.98 GHz, so er * 1.05 puts the spread's low end at 24.98 / sqrt(1.05)."""
+    from ebglayout.checks import run_checks
+    from ebglayout.estimate import estimate_layout
+
+    low = 299792458 / (2 * 3e-3 * 2) / math.sqrt(1.05)
+    for tolerance, warned in ((0.15, True), (0.55, False)):
+        layout = make(target="12GHz", rules={"target_tolerance": tolerance})
+        estimate = estimate_layout(layout)
+        assert estimate.rejection is None
+        found = [f for f in run_checks(layout, estimate=estimate).findings if f.rule == "notch-target"]
+        assert bool(found) is warned
+        if warned:
+            assert found[0].value == pytest.approx(100 * abs(12e9 / low - 1), rel=0.01)
+            assert found[0].limit == pytest.approx(100 * tolerance)
+
+
 def test_widths_agree_with_klayout_width_and_space_checks(tmp_path):
     """KLayout's own width check (Projection metric) finds the same narrow places as ebglayout's, on shapes with violations."""
     kdb = pytest.importorskip("klayout.db")

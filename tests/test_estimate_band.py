@@ -146,9 +146,10 @@ def test_refine_rectangles_scales_the_patch_by_the_observed_error(sample_layouts
     observed = 0.95 * spec.target_hz
     for keep in ("across", "aspect"):
         out = refine(spec, observed, keep=keep)
+        formula = out["formula"]
         assert out["factor"] == pytest.approx(1 / 0.95, rel=1e-9)
         assert out["design_hz"] == pytest.approx(spec.target_hz / 0.95, abs=1e3)
-        for (along, across), (new_along, new_across) in zip(spec.patches, out["patches"]):
+        for (along, across), (new_along, new_across) in zip(spec.patches, formula["patches"]):
             # hand formula: f10 ~ 1 / a, so a' = a * f_obs / f_target
             assert new_along == pytest.approx(along * 0.95, abs=2e-6)
             assert new_across == pytest.approx(across if keep == "across" else across * 0.95, abs=2e-6)
@@ -159,9 +160,9 @@ def test_refine_bridged_then_rebuild_hits_each_cells_design_frequency(sample_lay
     spec = layout.spec
     out = refine(spec, 1.1 * spec.target_hz)
     raw = copy.deepcopy(spec.echo)
-    raw["cut"]["patches"] = out["patches"]
+    raw["cut"]["patches"] = out["formula"]["patches"]
     est = estimate_layout(build_layout(spec_from_dict(raw)))
-    for cell, want in zip(est.cells, out["cells"]):
+    for cell, want in zip(est.cells, out["formula"]["cells"]):
         assert cell.notch_hz == pytest.approx(want["design_hz"], rel=0.01)
         assert want["design_hz"] == pytest.approx(want["model_hz"] / 1.1, rel=1e-6)
 

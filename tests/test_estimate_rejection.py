@@ -89,6 +89,7 @@ def test_build_writes_a_touchstone_file_scikit_rf_reads_back(tmp_path):
 
 @pytest.mark.parametrize("kwargs", [
     dict(target_hz=16e9, er=4.1, pair=(0.12, 0.15)),
+    dict(target_hz=16e9, er=4.1, pair=(0.2, 0.3), style="folded", tan_d=0.0),
     dict(target_hz=8e9, er=4.1, pair=(0.12, 0.15), style="bridged", aspect=1.2, bridge=(0.12, 0.6, 1)),
 ])
 def test_size_with_model_lands_the_modelled_notch_on_the_target(kwargs):
@@ -104,19 +105,26 @@ def test_size_with_model_lands_the_modelled_notch_on_the_target(kwargs):
     assert sized["model_hz"] == pytest.approx(target, rel=MODEL_TOLERANCE)
     # rebuilt independently from the printed size: the same row, the same notch, and the checks pass
     along, across = sized["patch"]
+    assert sized["patch"] == [round(along, 3), round(across, 3)]  # what a fab drawing holds: 1 um
     width, spacing = kwargs["pair"]
     cut = {"style": kwargs.get("style", "straight"), "patch": [along, across], "count": 3, "slot": 0.15, "web": 0.3}
+    passes = 3 if cut["style"] == "folded" else 1
+    if passes > 1:
+        assert sized["passes"] == passes
+        cut["passes"] = passes
     if "bridge" in kwargs:
         w, length, per_side = kwargs["bridge"]
         cut["bridge"] = {"width": w, "length": length, "per_side": per_side}
     layout = build_layout(spec_from_dict({
         "target": target, "pair": {"width": width, "spacing": spacing, "path": [[0, 0], [3 * (along + 0.45) + 10, 0]]},
-        "cut": cut, "stackup": {"er": kwargs["er"], "h": 0.1}}))
+        "cut": cut, "stackup": {"er": kwargs["er"], "h": 0.1, "tan_d": kwargs.get("tan_d", 0.02)}}))
     freq = np.linspace(0.6 * target, 1.4 * target, 1001)
     notch = summarize(freq, db20(mixed_mode(filter_network(layout, freq)).scc21)).notch_hz
     assert notch == pytest.approx(target, rel=2 * MODEL_TOLERANCE)
     assert not run_checks(layout).errors
-    assert across >= 2 * (width + spacing / 2 + 0.4) - 1e-9
+    # room for every pass with both traces 0.4 mm (rules.corner_margin) from the corners, at the default lane gap
+    lane_pitch = 2 * width + spacing + max(3 * width, 2 * spacing)
+    assert across >= 2 * width + spacing + (passes - 1) * lane_pitch + 2 * 0.4 - 1e-9
 
 
 def test_size_command_with_the_pair_prints_the_model_notch(capsys):

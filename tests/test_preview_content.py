@@ -8,6 +8,7 @@ import math
 import re
 from itertools import combinations
 
+import numpy as np
 import pytest
 from PIL import ImageFont
 from shapely.affinity import affine_transform
@@ -150,3 +151,26 @@ def test_net_labels_stay_inside_the_panel_and_apart():
         x0, y0, x1, y1 = region.bounds
         assert view.left <= x0 and x1 <= view.right and view.top <= y0 and y1 <= view.bottom
     assert boxes[0].intersection(boxes[1]).area == 0
+
+
+def test_notch_plot_shows_the_models_notch_and_guaranteed_stopband(sample_layouts):
+    """The preview's notch plot draws the circuit model's nominal notch as a line and each guaranteed band as a
+    shaded span, on the same linear GHz axis as the target line (checked by the ratio of their page spans)."""
+    from ebglayout.estimate import estimate_layout
+    from ebglayout.export.drawing import COLOURS, Polyline
+
+    layout = sample_layouts["hx2_l1_rx_folded"]
+    notch = estimate_layout(layout, model=True).to_json()
+    model = notch["model"]
+    bands = model["tolerance"]["guaranteed_stopband_hz"]
+    assert bands, "the folded sample's model has a guaranteed stopband to draw"
+    items = build_drawing(layout, (), notch)
+    shaded = [i for i in items if isinstance(i, Fill) and i.colour == COLOURS["guaranteed"] and i.role == "band"]
+    lines = {i.colour: i for i in items if isinstance(i, Polyline) and i.role == "target"}
+    assert len(shaded) == len(bands) and set(lines) == {COLOURS["model"], COLOURS["target"]}
+    y_model, y_target = lines[COLOURS["model"]].points[0][1], lines[COLOURS["target"]].points[0][1]
+    span = np.ptp(shaded[0].coords[:, 1])
+    px_per_hz = (y_model - y_target) / (notch["target_hz"] - model["scc21"]["notch_hz"])
+    assert span == pytest.approx((bands[0][1] - bands[0][0]) * px_per_hz, rel=1e-6)
+    texts = {i.text for i in items if isinstance(i, Text)}
+    assert {"guaranteed (model)", "model notch"} <= texts

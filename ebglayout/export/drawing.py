@@ -30,7 +30,7 @@ COLOURS = {
     "plane": "#f4e1c1", "slot": "#ffffff", "patch": "#d99a4e", "bridge": "#8c4a1c", "edge": "#5a4632",
     "P": "#1f5fbf", "N": "#8e44ad", "hatch": "#ffffff", "full": "#111111", "other": "#e6007e",
     "error": "#d62728", "warning": "#ff8c00", "dim": "#2b2b2b", "caution": "#8b0000",
-    "band": "#cde8cd", "target": "#2e7d32", "mode": "#333333", "lc": "#8c4a1c", "notch": "#1565c0",
+    "band": "#cde8cd", "guaranteed": "#f4c7a1", "model": "#6a1b9a", "target": "#2e7d32", "mode": "#333333", "lc": "#8c4a1c", "notch": "#1565c0",
     "track": "#3f7f6a", "via": "#5c5c5c", "cell": "#3b2a14",
 }
 MAIN_BOX = (80.0, 128.0, 1016.0, 818.0)
@@ -661,7 +661,8 @@ def _summary(layout: Layout, findings: Sequence, unlabelled: int = 0) -> list[st
 
 def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
     """Per-cell notch frequencies against band and target: cavity modes, the bridged LC estimate and the
-    governing notch, each where the estimate gives it."""
+    governing notch, each where the estimate gives it; with the circuit model (``notch["model"]``) also its
+    nominal Scc21 notch and the guaranteed stopband over the tolerance corners."""
     left, top, right, bottom = frame
     cells = notch.get("cells", [])
     band = notch.get("notch_spread") or {}
@@ -678,6 +679,11 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
     ghz = [g for series in points.values() for _, g in series]
     ghz += [band["low_hz"] / 1e9, band["high_hz"] / 1e9] if has_band else []
     ghz += [target / 1e9] if target else []
+    model = notch.get("model") or {}
+    model_notch = (model.get("scc21") or {}).get("notch_hz")
+    guaranteed = (model.get("tolerance") or {}).get("guaranteed_stopband_hz") or []
+    ghz += [model_notch / 1e9] if model_notch else []
+    ghz += [g / 1e9 for b in guaranteed for g in b]
     lo, hi = (min(ghz), max(ghz)) if ghz else (0.0, 1.0)
     pad = 0.06 * (hi - lo) if hi > lo else 0.5
     lo, hi = lo - pad, hi + pad
@@ -703,6 +709,15 @@ def _notch_items(notch: dict, frame: tuple[float, float, float, float]) -> list:
         y_high = min(bottom, max(top, px(1, band["high_hz"] / 1e9)[1]))
         items.append(_rect(left, y_high, right, y_low, COLOURS["band"], role="band"))
         entries.append(("notch spread", ("rect", COLOURS["band"], {})))
+    for low_hz, high_hz in guaranteed:
+        y_low, y_high = px(1, low_hz / 1e9)[1], px(1, high_hz / 1e9)[1]
+        items.append(_rect(left + 0.8 * (right - left), y_high, right, y_low, COLOURS["guaranteed"], role="band"))
+    if guaranteed:
+        entries.append(("guaranteed (model)", ("rect", COLOURS["guaranteed"], {})))
+    if model_notch:
+        y = px(1, model_notch / 1e9)[1]
+        items.append(Polyline(np.array([(left, y), (right, y)]), COLOURS["model"], 1.2, (2.0, 2.0), role="target"))
+        entries.append(("model notch", ("line", COLOURS["model"], 1.2, (2.0, 2.0))))
     if target:
         y = px(1, target / 1e9)[1]
         items.append(Polyline(np.array([(left, y), (right, y)]), COLOURS["target"], 1.5, (6.0, 3.0), role="target"))
