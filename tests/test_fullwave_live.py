@@ -16,7 +16,7 @@ from ebglayout.fullwave.run import simulate
 from ebglayout.layout import build_layout
 from ebglayout.response import summarize
 from ebglayout.sparams import mixed_mode
-from ebglayout.spec import load_spec, spec_from_dict
+from ebglayout.spec import spec_from_dict
 
 from conftest import SAMPLES
 

@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-import shapely
 from shapely.geometry import Point, box
 from shapely.ops import unary_union
 

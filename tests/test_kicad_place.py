@@ -11,8 +11,6 @@ import types
 import pytest
 
 from ebglayout.cli import main
-from ebglayout.layout import build_layout
-from ebglayout.spec import spec_from_dict
 from ebglayout.kicad.board import read_board
 from ebglayout.kicad.workflow import check_board, placed_designs
 

@@ -14,7 +14,6 @@ from pathlib import Path
 
 import numpy as np
 import shapely
-from shapely.geometry import Point
 from shapely.ops import unary_union
 
 from ..errors import EbgError

@@ -31,7 +31,6 @@ from ..outputs import StagedOutputs
 from ..path import piece_points, polyline_of
 from ..pipeline import FilterResult, can_fork, output_names, write_filter
 from ..spec import MAX_NAME_BYTES, Arc, read_toml, spec_from_dict
-from ..units import format_length
 from .board import Board, read_board
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
