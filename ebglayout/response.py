@@ -67,6 +67,20 @@ class CurveSummary:
                 "stopband_clipped": list(self.stopband_clipped)}
 
 
+DIP_PROMINENCE_DB = 3.0
+"""A local minimum of a transmission curve counts as a dip when it lies at least this far below the lower of the
+highest points between it and its neighbouring minima (or the grid's ends)."""
+
+
+def dip_indices(s_db) -> list[int]:
+    """Grid indices of the prominent dips (``DIP_PROMINENCE_DB``) of one curve in dB, low to high frequency."""
+    curve = np.asarray(s_db, dtype=float)
+    minima = [i for i in range(1, len(curve) - 1) if curve[i] < curve[i - 1] and curve[i] <= curve[i + 1]]
+    bounds = [0] + minima + [len(curve) - 1]
+    return [i for j, i in enumerate(minima)
+            if min(curve[bounds[j]:i + 1].max(), curve[i:bounds[j + 2] + 1].max()) - curve[i] >= DIP_PROMINENCE_DB]
+
+
 def summarize(freq_hz, s_db, threshold_db: float = DEFAULT_THRESHOLD_DB) -> CurveSummary:
     """Notch, depth and stopband of one curve (|S| in dB on an increasing grid in Hz).
 

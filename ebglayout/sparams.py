@@ -74,7 +74,8 @@ def mixed_mode(network, z0_diff_ohm: float | None = None, z0_comm_ohm: float | N
 def common_through(s: np.ndarray) -> np.ndarray:
     """Scc21 alone from single-ended S (F, 4, 4) in the project's port order, all ports of one real reference:
     (S31 + S32 + S41 + S42) / 2, the mixed-mode definition (D. E. Bockelman and W. R. Eisenstadt, IEEE T-MTT
-    43(7), 1995; from memory) that ``mixed_mode`` gets from scikit-rf.  For the tolerance corners, which need
+    43(7), 1995; from memory) that ``mixed_mode`` gets from scikit-rf, referred to half the ports' reference
+    (ports at 2 Zc give Scc21 at Zc).  For the tolerance corners, which need
     only this term: the full conversion costs far more than the model's solve."""
     s = np.asarray(s)
     return (s[:, 2, 0] + s[:, 2, 1] + s[:, 3, 0] + s[:, 3, 1]) / 2

@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from ebglayout.checks import run_checks
+from ebglayout.errors import EbgError
 from ebglayout.cli import main
 from ebglayout.estimate.rejection import model_rejection
 from ebglayout.estimate.sizing import format_band_sizing, row_spec, size_for_band
@@ -102,6 +103,7 @@ def test_refine_through_the_model_carries_its_error_to_the_new_size(name, observ
     import copy
 
     from ebglayout.bundled import sample_specs
+    from ebglayout.estimate.lines import mode_reference_ohm
     from ebglayout.estimate.network import filter_network
     from ebglayout.estimate.sizing import MODEL_TOLERANCE, refine
     from ebglayout.response import db20, summarize
@@ -113,7 +115,8 @@ def test_refine_through_the_model_carries_its_error_to_the_new_size(name, observ
 
     def notch(layout):
         freq = np.linspace(0.6 * target, 1.4 * target, 1001)
-        return summarize(freq, db20(mixed_mode(filter_network(layout, freq)).scc21)).notch_hz
+        modes = mode_reference_ohm(layout.stackup, layout.spec.pair_width, layout.spec.pair_spacing)
+        return summarize(freq, db20(mixed_mode(filter_network(layout, freq), *modes).scc21)).notch_hz
 
     before = notch(build_layout(spec))
     out = refine(spec, observed_ratio * target, keep=keep)
@@ -129,3 +132,14 @@ def test_refine_through_the_model_carries_its_error_to_the_new_size(name, observ
         assert new_a / a == pytest.approx(observed_ratio, rel=0.03)
         assert new_b / b == pytest.approx(observed_ratio if keep == "aspect" else 1.0, rel=0.03 if keep == "aspect" else 1e-9)
     assert out["check_errors"] == []
+
+
+def test_model_sizing_refuses_a_notch_that_does_not_settle(monkeypatch):
+    """A model whose notch ignores the patch size (here: always 10 % low) cannot be landed on the target: sizing
+    says so in one line instead of returning the last size it tried."""
+    import ebglayout.estimate.sizing as sizing
+
+    monkeypatch.setattr(sizing, "model_notch_hz", lambda layout, around_hz, near_hz=None: 0.9 * around_hz)
+    with pytest.raises(EbgError, match="did not settle") as err:
+        sizing.size_with_model(target_hz=16e9, er=4.1, pair=(0.12, 0.15))
+    assert "\n" not in str(err.value)

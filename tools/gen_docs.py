@@ -36,8 +36,14 @@ def rule_table() -> str:
 
 
 def model_accuracy_table() -> str:
-    return accuracy.table([accuracy.compare(REFERENCES, name, accuracy.spec_for(REFERENCES, name, ROOT / "samples"))
-                           for name in accuracy.stored_cases(REFERENCES)])
+    table = accuracy.table([accuracy.compare(REFERENCES, name, accuracy.spec_for(REFERENCES, name, ROOT / "samples"))
+                            for name in accuracy.stored_cases(REFERENCES)])
+    left_out = accuracy.stored_cases(REFERENCES, settled=False)
+    if left_out:
+        table += ("\n\nLeft out (a run ended with the field energy above "
+                  f"{accuracy.SETTLED_DB:g} dB of its peak, a truncated record): "
+                  + ", ".join(f"`{name}`" for name in left_out) + ".")
+    return table
 
 
 def model_misses() -> str:

@@ -1,8 +1,8 @@
 """The circuit model against a stored full-wave result of the same drawn filter, figure by figure.
 
 A full-wave result (``ebglayout fullwave``: ``<name>.s4p`` and ``<name>.fullwave.json``) is read back through
-scikit-rf's Touchstone reader and the model is solved on the result's own frequency grid, referred to the
-result's port impedance and with perfect conductors (the full-wave runs model copper as lossless, see the
+scikit-rf's Touchstone reader and the model is solved on the result's own frequency grid, both referred to the
+mode impedances the result names (``fullwave.mode_reference_ohm``) and the model with perfect conductors (the full-wave runs model copper as lossless, see the
 README's full-wave limits), so both curves describe the same idealised board.  Both are summarised by
 ``response.summarize``, the model around its dip nearest the full-wave notch (``_dip_around``); the figures compared are the ones issue 13 sets goals for (``GOALS``).
 """
@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..response import db20, summarize
+from ..response import db20, dip_indices, summarize
 from ..sparams import mixed_mode
 
 GOALS = {"notch_straight": 0.015, "notch_other": 0.04, "edge": 0.02, "depth_db": 8.0, "sdd21_db": 0.5,
@@ -26,43 +26,44 @@ notch."""
 
 METRICS = ("notch", "stopband", "depth", "sdd21")
 
+SLOT_CAPACITANCE = ("the model's notch sits high on every straight reference (+1.5 to +1.9 %), the sign of the edge "
+                    "term it leaves out: the slot's capacitance to the plane around the cut, 0.15 mm across it, on top "
+                    "of the open-end fringing to the plane beyond (Hammerstad's extension assumes an open edge)")
+FITTED_LOSS = ("the full-wave line loss is nearly flat with frequency ({}), as a dielectric conductivity fitted to "
+               "tan d at one frequency gives, while the model takes the handbook attenuation with a constant tan d, "
+               "growing with frequency ({}; D. M. Pozar, Microwave Engineering, 4th ed., eq. 3.198, from memory): "
+               "here the reference is the one that is off, see the README's full-wave limits")
+
 KNOWN_MISSES = {
-    ("hx2_l0_straight3_h020", "notch"):
-        "+1.80 % at h 0.2 mm; the model's notch sits high on every straight reference (+1.4 to +1.9 %), the "
-        "sign of the edge term it leaves out: the slot's capacitance to the plane around the cut, 0.15 mm across "
-        "it, on top of the open-end fringing to the plane beyond (Hammerstad's extension assumes an open edge); "
-        "over a thicker cavity that term is larger",
+    ("hx2_l0_straight3_h020", "notch"): f"+1.81 % at h 0.2 mm: {SLOT_CAPACITANCE}; over a thicker cavity that "
+                                        "term is larger",
     ("hx2_l0_straight3_h020", "stopband"):
-        "low edge +2.63 % of the notch (high edge +0.99 %): the band sits where the notch does, see the notch",
-    ("hx2_l0_straight3_lossy", "stopband"):
-        "the model's dip is -6.3 dB against the full-wave -10.2 dB, so it has no -10 dB band where the full-wave "
-        "one is 0.4 % wide: with tan d 0.02 the cavity's Q is near its loss limit, and the model's loss is the "
-        "handbook's constant tan d, higher at the notch than the full-wave run's (see |Sdd21|)",
+        "low edge +2.47 % of the notch (high edge +1.51 %): the band sits where the notch does, see the notch",
+    ("hx2_l0_straight3_lossy", "notch"): f"+1.56 % with tan d 0.02: {SLOT_CAPACITANCE}",
     ("hx2_l0_straight3_lossy", "sdd21"):
-        "0.55 dB: the full-wave line loss is nearly flat with frequency (|Sdd21| -0.67 dB at 1.3 GHz, -0.75 dB "
-        "at 14.4 GHz), as a dielectric conductivity fitted to tan d at one frequency gives, and smaller than the "
-        "handbook attenuation with a constant tan d the model uses (D. M. Pozar, Microwave Engineering, 4th ed., "
-        "eq. 3.198; from memory; model -1.66 dB at 14.4 GHz)",
-    ("hx2_l0_straight3_patch40", "notch"):
-        "+1.89 % with the 4.0 mm patch: the same missing slot capacitance as at h 0.2 mm, a larger share of a "
-        "shorter cavity",
+        "0.51 dB: " + FITTED_LOSS.format("|Sdd21| -0.63 dB at 2 GHz, -0.67 dB at 14 GHz", "-0.17 and -1.28 dB"),
+    ("hx2_l0_straight3_patch40", "notch"): f"+1.89 % with the 4.0 mm patch: {SLOT_CAPACITANCE}; a larger share "
+                                           "of a shorter cavity",
     ("hx2_l0_straight3_patch40", "stopband"):
-        "low edge +2.36 % of the notch (high edge +1.46 %): the band sits where the notch does, see the notch",
+        "low edge +2.25 % of the notch (high edge +1.59 %): the band sits where the notch does, see the notch",
     ("hx2_l0_straight3_stagger4", "notch"):
-        "+1.74 % on the smallest cell's dip (the full-wave notch); the three cells' dips sit +1.4, +1.5 and "
-        "+1.7 % high, as on the single-size rows (missing slot capacitance)",
-    ("hx2_l0_straight3_stagger4", "stopband"):
-        "the full-wave dip only just passes -10 dB (-10.9 dB, 0.3 % wide); the model's same dip is -7.9 dB, so "
-        "it has no band",
+        f"+1.75 % on the smallest cell's dip (the full-wave notch); the three cells' dips sit +1.4, +1.6 and "
+        f"+1.8 % high: {SLOT_CAPACITANCE}",
+    ("hx2_l2_tx_bridged", "notch"):
+        "model 7.20 GHz against a full-wave dip at 6.56 GHz (+9.8 %) that is only 3.7 dB deep and flat from 6.4 to "
+        "6.8 GHz, so its centre is loosely defined; the model has two dips (7.02 and 7.20 GHz, one per size), "
+        "the full-wave run one: see the depth",
     ("hx2_l2_tx_bridged", "depth"):
-        "full-wave dip 4.3 dB, model 23 dB: the bridges tie each patch to the plane around the cut, which the "
+        "full-wave dip 3.7 dB, model 23 dB: the bridges tie each patch to the plane around the cut, which the "
         "model takes as the plane beyond (ideal stitching), while the full-wave run ties the two planes only by "
         "electric walls at the ends of its domain (2.5 mm beyond the cut along the pair, default preset); the "
         "bridges' current returns through that plane pair, which loads and damps the patch's LC resonance and "
         "lets power leave through the absorbing sides",
     ("hx2_l2_tx_bridged", "stopband"):
-        "the full-wave result never reaches -10 dB (its dip is 4.3 dB), the model's -10 dB band is 6.72-7.45 GHz: "
+        "the full-wave result never reaches -10 dB (its dip is 3.7 dB), the model's -10 dB band is 6.71-7.43 GHz: "
         "see its depth",
+    ("hx2_l3_rx_stripline", "sdd21"):
+        "0.88 dB: " + FITTED_LOSS.format("|Sdd21| -0.80 dB at 2 GHz, -0.87 dB at 14 GHz", "-0.23 and -1.67 dB"),
 }
 """Figures where the model misses its goal after the physics above, with the reason; the tests mark these
 expected failures (strict, so a fix shows) and the README's table says so."""
@@ -88,6 +89,8 @@ class Comparison:
     def meets(self, metric: str) -> bool:
         """Whether one figure (``METRICS``) is within its goal; a stopband on one side only is a miss."""
         if metric == "notch":
+            if self.fullwave.notch_at_grid_edge:
+                return self.model.depth_db > self.fullwave.threshold_db
             return abs(self.notch_error) <= self.notch_goal
         if metric == "stopband":
             if self.model.stopband_hz is None and self.fullwave.stopband_hz is None:
@@ -100,10 +103,22 @@ class Comparison:
         raise ValueError(metric)
 
 
-def stored_cases(folder: Path) -> list[str]:
-    """Names of the complete stored results (Touchstone and JSON) in ``folder``, sorted."""
-    return sorted(p.name[:-len(".fullwave.json")] for p in folder.glob("*.fullwave.json")
-                  if (folder / (p.name[:-len(".fullwave.json")] + ".s4p")).exists())
+SETTLED_DB = -30.0
+"""A reference counts only if every run's record ended with the field energy at least this far below its peak:
+a record stopped earlier is a truncated ring, and its notch, depth and stopband are smeared by the window."""
+
+
+def stored_cases(folder: Path, settled: bool = True) -> list[str]:
+    """Names of the complete stored results (Touchstone and JSON) in ``folder``, sorted; with ``settled`` only
+    those whose runs all ended at or below ``SETTLED_DB``, else only those that did not."""
+    names = sorted(p.name[:-len(".fullwave.json")] for p in folder.glob("*.fullwave.json")
+                   if (folder / (p.name[:-len(".fullwave.json")] + ".s4p")).exists())
+    return [n for n in names if _settled(folder, n) == settled]
+
+
+def _settled(folder: Path, name: str) -> bool:
+    data = json.loads((folder / f"{name}.fullwave.json").read_text(encoding="utf-8"))
+    return max(data["fullwave"]["end_energy_db"]) <= SETTLED_DB
 
 
 def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
@@ -116,16 +131,17 @@ def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
 
     data = json.loads((folder / f"{name}.fullwave.json").read_text(encoding="utf-8"))
     reference = skrf.Network(str(folder / f"{name}.s4p"))
-    ref_mm = mixed_mode(reference)
+    modes = data["fullwave"]["mode_reference_ohm"]
+    ref_mm = mixed_mode(reference, modes["differential"], modes["common"])
     freq = ref_mm.freq_hz
     layout = build_layout(load_spec(spec_path))
-    z0 = float(np.real(reference.z0[0, 0]))
-    model_mm = mixed_mode(filter_network(layout, freq, z0_ohm=z0, copper=False))
+    model_mm = mixed_mode(filter_network(layout, freq, copper=False), modes["differential"], modes["common"])
     threshold = data["threshold_db"]
     ref_sum = summarize(freq, db20(ref_mm.scc21), threshold)
     notch = ref_sum.notch_hz
     model_db = db20(model_mm.scc21)
-    window = _dip_around(model_db, int(np.argmin(np.abs(freq - notch))), threshold)
+    k = int(np.argmin(np.abs(freq - notch)))
+    window = _dip_around(model_db, _same_dip(db20(ref_mm.scc21), model_db, k), threshold)
     mod_sum = summarize(freq[window], model_db[window], threshold)
     edges = None
     if ref_sum.stopband_hz is not None and mod_sum.stopband_hz is not None:
@@ -138,6 +154,16 @@ def compare(folder: Path, name: str, spec_path: Path) -> Comparison:
         kind = f"{kind}, stripline"
     return Comparison(name, kind, mod_sum, ref_sum, mod_sum.notch_hz / notch - 1, edges,
                       mod_sum.depth_db - ref_sum.depth_db, sdd)
+
+
+def _same_dip(reference: np.ndarray, model: np.ndarray, k: int) -> int:
+    """Where to look for the model's dip that answers the reference's dip at ``k``: the model's dip of the same
+    rank when both curves have the same number of prominent dips (a staggered row: one per cell size, each
+    model dip a little off its own), else ``k`` itself."""
+    ours, theirs = dip_indices(reference), dip_indices(model)
+    if k in ours and len(ours) == len(theirs):
+        return theirs[ours.index(k)]
+    return k
 
 
 def _dip_around(curve: np.ndarray, k: int, threshold_db: float) -> slice:
@@ -174,11 +200,18 @@ def table(comparisons: list[Comparison]) -> str:
         missed = [m for m in METRICS if not c.meets(m)]
         edges = "-" if c.edge_errors is None else " / ".join(f"{e * 100:+.2f} %" for e in c.edge_errors)
         rows.append(
-            f"| `{c.name}` | {c.kind} | {c.model.notch_hz / 1e9:.3f} / {c.fullwave.notch_hz / 1e9:.3f} GHz "
-            f"({c.notch_error * 100:+.2f} %, goal {c.notch_goal * 100:.1f} %) | {_depth(c.model.depth_db)} / "
+            f"| `{c.name}` | {c.kind} | {_notch(c)} | {_depth(c.model.depth_db)} / "
             f"{_depth(c.fullwave.depth_db)} dB | {_band(c.model.stopband_hz)} / {_band(c.fullwave.stopband_hz)} | "
             f"{edges} | {c.sdd21_error_db:.2f} dB | {', '.join(missed) or 'none'} |")
     return "\n".join(rows)
+
+
+def _notch(c: Comparison) -> str:
+    if c.fullwave.notch_at_grid_edge:
+        return (f"full-wave: no dip (lowest at the grid's edge, {c.fullwave.notch_hz / 1e9:.3f} GHz); goal: the model "
+                "rejects less than the threshold too")
+    return (f"{c.model.notch_hz / 1e9:.3f} / {c.fullwave.notch_hz / 1e9:.3f} GHz ({c.notch_error * 100:+.2f} %, "
+            f"goal {c.notch_goal * 100:.1f} %)")
 
 
 def _depth(db: float) -> str:

@@ -164,3 +164,10 @@ def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float, copper: boo
         even, odd = microstrip_coupled(width_mm / h, spacing_mm / h, er)
     return CoupledLines(even, odd, er, tan_d, width_mm, stackup.stripline, COPPER_S_PER_M if copper else None)
 
+
+def mode_reference_ohm(stackup: Stackup, width_mm: float, spacing_mm: float) -> tuple[float, float]:
+    """(differential, common) reference impedances every mixed-mode result is stated at, model and full-wave
+    alike: 2 Z0odd and Z0even / 2 of the pair's closed forms above, rounded to 1 mohm as the result files state
+    them. A plain line then reads matched in both modes, so a dip in Scc21 is the filter's and not a mismatch's."""
+    lines = pair_lines(stackup, width_mm, spacing_mm)
+    return round(lines.z_differential, 3), round(lines.z_common, 3)

@@ -19,6 +19,7 @@ from ..layout import Layout, build_layout
 from ..response import corners_json, db20, response_json
 from ..sparams import common_through, mixed_mode
 from ..stackup import CutPlaneStack, Dielectric, Stackup
+from .lines import mode_reference_ohm
 from .network import SOURCE, filter_network
 
 POINTS = 1001
@@ -40,6 +41,8 @@ class Rejection:
     threshold_db: float
     margin: float
     tolerances: dict
+    mode_reference_ohm: tuple[float, float] = (None, None)
+    """(differential, common) impedances the mixed-mode terms are referred to (``lines.mode_reference_ohm``)."""
 
     def to_json(self) -> dict:
         """The result object (``response.response_json``) with the notch spread, the corners and their guaranteed
@@ -47,11 +50,13 @@ class Rejection:
         margin."""
         corners = corners_json(self.freq_hz, self.corners, self.threshold_db)
         notches = [c["notch_hz"] for c in corners["corners"]]
-        extra = {"model_caution": MODEL_CAUTION, "tolerances": self.tolerances,
+        differential, common = self.mode_reference_ohm
+        extra = {"model_caution": MODEL_CAUTION, "mode_reference_ohm": [differential, common],
+                 "tolerances": self.tolerances,
                  "notch_spread_hz": [min(notches), max(notches)],
                  "target_margin": self.margin, "target_covered": self.target_covered(corners),
                  "tolerance": corners}
-        return response_json(mixed_mode(self.network), source=SOURCE, target_hz=self.target_hz,
+        return response_json(mixed_mode(self.network, *self.mode_reference_ohm), source=SOURCE, target_hz=self.target_hz,
                              threshold_db=self.threshold_db, extra=extra)
 
     def target_covered(self, corners: dict | None = None) -> bool | None:
@@ -100,8 +105,9 @@ def _copper_key(layout: Layout) -> bytes:
 
 def _solve(layout: Layout, freq_hz: np.ndarray, corners: bool, etch: bool) -> Rejection:
     spec = layout.spec
+    reference = mode_reference_ohm(layout.stackup, spec.pair_width, spec.pair_spacing)
     nominal = filter_network(layout, freq_hz)
-    curves = {"nominal": db20(mixed_mode(nominal).scc21)}
+    curves = {"nominal": db20(mixed_mode(nominal, *reference).scc21)}
     etch = spec.etch_tolerance if etch else 0.0
     skipped = []
     if corners:
@@ -117,11 +123,12 @@ def _solve(layout: Layout, freq_hz: np.ndarray, corners: bool, etch: bool) -> Re
                             1 + r_pair * spec.h_tolerance)
             label = f"er{'-+'[r_er > 0]} h{'-+'[r_h > 0]} pair_h{'-+'[r_pair > 0]}"
             label += f" etch{'-+'[sign > 0]}" if sign else ""
-            curves[label] = db20(common_through(filter_network(lay, freq_hz, stackup=stack).s))
+            single_ended = filter_network(lay, freq_hz, stackup=stack, z0_ohm=2 * reference[1])
+            curves[label] = db20(common_through(single_ended.s))
     tolerances = {"er": spec.er_tolerance, "h": spec.h_tolerance, "pair_h": spec.h_tolerance, "etch_mm": etch,
                   "etch_corners_not_built": skipped}
     return Rejection(np.asarray(freq_hz, dtype=float), nominal, curves, spec.target_hz, spec.rejection_db,
-                     spec.target_margin, tolerances)
+                     spec.target_margin, tolerances, reference)
 
 
 def _scaled(stack: Stackup, er: float, h: float, pair_h: float) -> Stackup:

@@ -25,7 +25,7 @@ from ..spec import STYLES, FilterSpec
 from ..units import format_length, spec_number
 from ..units import round_hz as _hz
 from .band import CAUTION, estimate_cell
-from .rejection import MODEL_CAUTION
+from .rejection import MODEL_CAUTION, model_rejection
 
 DEFAULT_ASPECT = 0.5
 """Default across / along ratio of a new patch: the fundamental then runs along the pair."""
@@ -130,7 +130,7 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across", observed_
         raise EbgError(f"keep = {keep!r}: must be 'across' or 'aspect'")
     factor = spec.target_hz / observed_hz
     formula = _refine_by_formula(spec, factor, keep)
-    model_now = model_notch_hz(build_layout(spec), spec.target_hz)
+    model_now = model_notch_hz(build_layout(spec), spec.target_hz, near_hz=spec.target_hz)
     model_goal = spec.target_hz * model_now / observed_hz
 
     def build(scale: float):
@@ -141,7 +141,8 @@ def refine(spec: FilterSpec, observed_hz: float, keep: str = "across", observed_
         except EbgError as exc:
             raise EbgError(f"refine: the cells re-sized by {scale:.4f} no longer fit the spec: {exc}") from None
 
-    scale, notch, iterations, layout = _land_on_model_notch(build, observed_hz / spec.target_hz, model_goal)
+    scale, notch, iterations, layout = _land_on_model_notch(build, observed_hz / spec.target_hz, model_goal,
+                                                            anchor=(1.0, model_now))
     patches = [[round(a, 6), round(b, 6)] for a, b in layout.spec.patches]
     out = {"target_hz": _hz(spec.target_hz), "observed_hz": _hz(observed_hz), "factor": round(factor, 9),
            "design_hz": _hz(spec.target_hz * factor),
@@ -296,7 +297,7 @@ def size_with_model(target_hz: float, er: float, pair: tuple[float, float], styl
     def build(along_mm: float):
         return build_layout(spec_from_dict(row_spec([[along_mm, across]] * count, **row)))
 
-    along, notch, iterations, layout = _land_on_model_notch(build, along, target_hz)
+    along, notch, iterations, layout = _land_on_model_notch(build, along, target_hz, anchor=(along, target_hz))
     along, across = layout.spec.patches[0]
     _must_pass_checks(layout, pair)
     shape = None if bridge is None else SimpleNamespace(slot=slot, bridge_width=bridge[0], bridge_length=bridge[1],
@@ -333,22 +334,34 @@ def row_spec(patches: list, *, target_hz: float, er: float, pair: tuple[float, f
             "rules": dict(rules or {})}
 
 
-def model_notch_hz(layout, around_hz: float) -> float:
-    """The nominal Scc21 notch of ``layout`` in the circuit model, swept 0.6-1.4 x ``around_hz``."""
-    from ..response import db20, summarize
-    from ..sparams import mixed_mode
-    from .network import filter_network
+def model_notch_hz(layout, around_hz: float, near_hz: float | None = None) -> float:
+    """The nominal Scc21 notch of ``layout`` in the circuit model, swept 0.6-1.4 x ``around_hz``: the prominent
+    dip nearest ``near_hz`` when given (the cells' own cavity mode, where a row also has other dips, such as a
+    folded route's loop resonances), else the deepest point."""
+    from ..response import dip_indices, summarize
 
     freq = np.linspace(0.6 * around_hz, 1.4 * around_hz, 1001)
-    return summarize(freq, db20(mixed_mode(filter_network(layout, freq)).scc21)).notch_hz
+    curve = model_rejection(layout, freq, corners=False).corners["nominal"]
+    dips = dip_indices(curve)
+    if near_hz is None or not dips:
+        return summarize(freq, curve).notch_hz
+    k = min(dips, key=lambda i: abs(freq[i] - near_hz))
+    lo, hi = max(k - 1, 0), min(k + 2, len(freq))
+    return summarize(freq[lo:hi], curve[lo:hi]).notch_hz
 
 
-def _land_on_model_notch(build, size: float, target_hz: float) -> tuple[float, float, int, object]:
+def _land_on_model_notch(build, size: float, target_hz: float,
+                         anchor: tuple[float, float]) -> tuple[float, float, int, object]:
     """Secant search on log(size) against log(notch) for the size whose built layout's model notch is
     ``target_hz`` (a cavity mode scales as 1 / size, the first step's slope); returns (size, notch,
-    iterations, layout)."""
+    iterations, layout).  ``anchor`` = (size, notch) of a known point of the cells' own mode: each size's dip is
+    the one nearest that mode scaled as 1 / size, so the search follows one mode.  Raises when it does not
+    settle within ``MODEL_TOLERANCE`` in 8 sizes rather than return a size that misses."""
+    def notch_of(layout, a: float) -> float:
+        return model_notch_hz(layout, target_hz, near_hz=anchor[1] * anchor[0] / a)
+
     layout = build(size)
-    points = [(size, model_notch_hz(layout, target_hz))]
+    points = [(size, notch_of(layout, size))]
     while abs(points[-1][1] / target_hz - 1) > MODEL_TOLERANCE and len(points) < 8:
         a1, f1 = points[-1]
         slope = -1.0
@@ -358,8 +371,13 @@ def _land_on_model_notch(build, size: float, target_hz: float) -> tuple[float, f
                 slope = math.log(f1 / f0) / math.log(a1 / a0)
         a2 = a1 * math.exp(math.log(target_hz / f1) / slope)
         layout = build(a2)
-        points.append((a2, model_notch_hz(layout, target_hz)))
-    return points[-1][0], points[-1][1], len(points), layout
+        points.append((a2, notch_of(layout, a2)))
+    size, notch = points[-1]
+    if abs(notch / target_hz - 1) > MODEL_TOLERANCE:
+        raise EbgError(f"model sizing: the model's notch did not settle within {MODEL_TOLERANCE:.1%} of "
+                       f"{target_hz / 1e9:.4g} GHz in {len(points)} sizes (last {notch / 1e9:.4g} GHz); size by the "
+                       "formula (size without --pair) and check the drawn cut with fullwave")
+    return size, notch, len(points), layout
 
 
 def _passes(style: str, passes: int | None) -> int:

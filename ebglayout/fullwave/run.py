@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import EbgError
 from ..layout import Layout
-from ..estimate.lines import microstrip_single, pair_lines, stripline_single
+from ..estimate.lines import microstrip_single, mode_reference_ohm, stripline_single
 from .model import PRESETS, Model, build_model, half_model
 from .openems import Progress, RunSignals, check_drawn, engine_version, find_engine, run_engine, spectrum
 
@@ -70,8 +70,8 @@ def mode_reference(layout: Layout) -> dict:
     """The mixed-mode reference impedances the results are stated at: differential 2 Z0odd and common Z0even / 2
     of the pair's lead-in (closed forms of estimate/lines.py), so a plain line reads matched in both modes and the
     lumped ports' single impedance leaves no standing-wave ripple on Scc21 and Sdd21."""
-    lines = pair_lines(layout.stackup, layout.spec.pair_width, layout.spec.pair_spacing)
-    return {"differential": round(lines.z_differential, 3), "common": round(lines.z_common, 3),
+    differential, common = mode_reference_ohm(layout.stackup, layout.spec.pair_width, layout.spec.pair_spacing)
+    return {"differential": differential, "common": common,
             "method": "scikit-rf se2gmm z0_mm: the 50-ohm single-ended S-parameters renormalised to the pair's "
                       "closed-form mode impedances (differential 2 Z0odd, common Z0even / 2)"}
 
