@@ -10,5 +10,5 @@ done
 for sample in hx2_l2_tx_bridged hx2_l3_rx_stripline; do
     ebglayout fullwave "samples/$sample.toml" --out "$here" --preset default --threads 2 --force
 done
-# the folded route runs on the full domain with four drives: the fast preset keeps it near 5 minutes
-ebglayout fullwave samples/hx2_l1_rx_folded.toml --out "$here" --preset fast --threads 2 --force
+# the folded route runs on the full domain with four drives: about 5 minutes on one thread
+ebglayout fullwave samples/hx2_l1_rx_folded.toml --out "$here" --preset default --threads 2 --force
