@@ -30,7 +30,7 @@ def _straight(**changes):
 
 def test_corners_move_the_notch_as_the_cavity_does():
     layout = _straight(tan_d=0.0)
-    freq = sweep(layout, [16e9], points=1201)
+    freq = sweep(layout, 16e9, [], points=1201)
     rej = model_rejection(layout, freq)
     assert len(rej.corners) == 17
     notch = {label: summarize(freq, curve).notch_hz for label, curve in rej.corners.items()}
@@ -51,7 +51,7 @@ def test_corners_move_the_notch_as_the_cavity_does():
 
 def test_without_etch_there_are_eight_corners():
     layout = _straight()
-    rej = model_rejection(layout, sweep(layout, [16e9], points=201), etch=False)
+    rej = model_rejection(layout, sweep(layout, 16e9, [], points=201), etch=False)
     assert len(rej.corners) == 9 and rej.tolerances["etch_mm"] == 0.0
 
 
@@ -148,3 +148,15 @@ def test_size_command_with_the_pair_prints_the_model_notch(capsys):
     assert printed and float(printed.group(1)) == pytest.approx(16.0, rel=MODEL_TOLERANCE)
     assert main(["size", "--target", "16GHz", "--er", "4.1", "--pair", "0.12"]) == 2
     assert "--pair = 0.12" in capsys.readouterr().err
+
+
+def test_sweep_leaves_out_a_target_far_from_every_notch():
+    """A target more than TARGET_REACH from the cells' notches (a typo such as 1THz) does not stretch the model's
+    grid to it: the grid stays around the notches, where the filter acts."""
+    from ebglayout.estimate.rejection import SPAN, TARGET_REACH
+
+    layout = build_layout(load_spec(samples_folder() / "hx2_l0_tx_straight.toml"))
+    far = sweep(layout, 1e12, [16e9], points=11)
+    assert far[0] == pytest.approx(SPAN[0] * 16e9) and far[-1] == pytest.approx(SPAN[1] * 16e9)
+    near = sweep(layout, 0.9 * TARGET_REACH * 16e9, [16e9], points=11)
+    assert near[-1] == pytest.approx(SPAN[1] * 0.9 * TARGET_REACH * 16e9)

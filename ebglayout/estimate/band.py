@@ -167,7 +167,7 @@ def estimate_layout(layout: Layout, accuracy: float = 0.01, model: bool = False,
     if model:
         from .rejection import model_rejection, sweep
 
-        rejection = model_rejection(layout, sweep(layout, [target] + [c.notch_hz for c in cells]), etch=etch)
+        rejection = model_rejection(layout, sweep(layout, target, [c.notch_hz for c in cells]), etch=etch)
     return Estimate(cells, low, high, target, inside, spec.er, spec.h, spec.er_tolerance, spec.h_tolerance,
                     tuple(corners), rejection)
 

@@ -68,9 +68,16 @@ class Rejection:
         return any(a <= low and high <= b for a, b in corners["guaranteed_stopband_hz"])
 
 
-def sweep(layout: Layout, references_hz: list[float], points: int = POINTS) -> np.ndarray:
-    """The model's frequency grid around the given reference frequencies (target, per-cell notches)."""
-    refs = [f for f in references_hz if f]
+TARGET_REACH = 2.0
+"""The sweep includes the target only within this factor of the cells' notches: a target farther off is missed
+by any reading of the model, and sweeping out to it would solve the cavities at thousands of modes."""
+
+
+def sweep(layout: Layout, target_hz: float | None, notches_hz: list[float], points: int = POINTS) -> np.ndarray:
+    """The model's frequency grid around the cells' notches and the target (when within ``TARGET_REACH``)."""
+    refs = [f for f in notches_hz if f]
+    if target_hz and (not refs or min(refs) / TARGET_REACH <= target_hz <= TARGET_REACH * max(refs)):
+        refs.append(target_hz)
     if not refs:
         raise EbgError("model sweep: needs a target or a notch estimate to centre on")
     return np.linspace(SPAN[0] * min(refs), SPAN[1] * max(refs), points)
