@@ -76,9 +76,9 @@ PARAMETERS: tuple[Parameter, ...] = (
     Parameter("cut.bridge.per_side", "int", 1, "bridged: bridges on each side the pair does not cross"),
     Parameter("stackup.er", "number", REQUIRED, "relative permittivity of the cavity dielectric: between each cut plane "
               "and the next plane beyond it, away from the pair (also for stripline)"),
-    Parameter("stackup.h", "length", REQUIRED, "thickness of that cavity dielectric"),
+    Parameter("stackup.h", "length", REQUIRED, "thickness of that cavity dielectric (at most 10 mm)"),
     Parameter("stackup.pair_h", "heights", None, "dielectric thickness between the pair and each cut plane: one length, "
-              "or one per entry of plane.layers in that order (default stackup.h)"),
+              "or one per entry of plane.layers in that order (default stackup.h; at most 10 mm)"),
     Parameter("stackup.pair_er", "number", None, "relative permittivity of the dielectric around the pair "
               "(default stackup.er)"),
     Parameter("stackup.tan_d", "number", 0.02, "loss tangent of all dielectrics (0.02: common practice for "
@@ -389,7 +389,22 @@ def _parse_layer(reader: _Reader, key: str, raw: object) -> str:
     return raw
 
 
+MAX_DIELECTRIC_MM = 10.0
+"""Thickest dielectric a spec may give between two copper layers: a few times the thickest common boards (common
+practice, from memory: about 3 to 7 mm), and within the range where the line formulas the model uses were fitted."""
+
+
+def _thickness(reader: _Reader, key: str, raw: object) -> float:
+    mm = reader.length(key, raw)
+    if mm > MAX_DIELECTRIC_MM:
+        raise SpecError(key, raw, f"must be a dielectric thickness of at most {MAX_DIELECTRIC_MM:g} mm "
+                        f"(got {format_mm(mm)})")
+    return mm
+
+
 def _parse_length(reader: _Reader, key: str, raw: object) -> float:
+    if key == "stackup.h":
+        return _thickness(reader, key, raw)
     zero_ok = key in ("cut.web", "cut.start", "rules.corner_margin", "rules.symmetry", "rules.edge_clearance",
                       "rules.bridge_keep", "cut.turn_clearance", "stackup.etch_tolerance")
     return reader.length(key, raw, allow_zero=zero_ok)
@@ -461,8 +476,8 @@ def _parse_heights(reader: _Reader, key: str, raw: object) -> tuple[float, ...]:
     if isinstance(raw, list):
         if not 1 <= len(raw) <= 2:
             raise SpecError(key, raw, "must be one length, or one length per entry of plane.layers")
-        return tuple(reader.length(f"{key}[{i}]", item) for i, item in enumerate(raw))
-    return (reader.length(key, raw),)
+        return tuple(_thickness(reader, f"{key}[{i}]", item) for i, item in enumerate(raw))
+    return (_thickness(reader, key, raw),)
 
 
 def _pair_heights(reader: _Reader, h: float) -> tuple[float, ...]:

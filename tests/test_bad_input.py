@@ -4,6 +4,7 @@ from __future__ import annotations
 import pytest
 
 from ebglayout.cli import main
+from ebglayout.errors import EbgError
 
 GOOD = """
 units = "mm"
@@ -29,6 +30,10 @@ def variant(old: str, new: str) -> str:
 
 
 SPEC_CASES = [
+    ("cavity thicker than a board", variant("\nh = 0.1", "\nh = 1000"),
+     "stackup.h = 1000: must be a dielectric thickness of at most 10 mm"),
+    ("pair height thicker than a board", variant("\nh = 0.1", "\nh = 0.1\npair_h = [20]"),
+     "stackup.pair_h[0] = 20: must be a dielectric thickness of at most 10 mm"),
     ("missing width", variant("width = 0.1\n", ""), "pair.width = (missing)"),
     ("negative patch", variant("patch = [3.0, 2.0]", "patch = [-3.0, 2.0]"), "cut.patch = -3"),
     ("zero slot", variant("slot = 0.15", "slot = 0"), "cut.slot = 0"),
@@ -366,3 +371,16 @@ def test_placed_filter_names_stay_within_the_name_limit():
     raw["name"] = names.pop()
     assert spec_from_dict(raw).name == raw["name"]
     assert _filter_name("HX2_L0_TX", {}, "hx2_l0_tx_straight.toml") == "HX2_L0_TX_hx2_l0_tx_straight"
+
+
+def test_a_pair_the_line_formulas_cannot_evaluate_is_one_line_not_a_crash():
+    """A spacing of 1 um over a 10 mm dielectric (s/h 1e-4) overflows the coupled-microstrip fit: an error
+    naming the pair's keys, not an internal error."""
+    from ebglayout.estimate.lines import pair_lines
+    from ebglayout.stackup import CutPlaneStack, Dielectric, Stackup
+
+    stack = Stackup(planes=(CutPlaneStack("In1.Cu", Dielectric(10.0, 4.1, 0.02), Dielectric(0.1, 4.1, 0.02)),),
+                    sources=())
+    with pytest.raises(EbgError, match="pair.spacing = 0.001 mm") as err:
+        pair_lines(stack, 0.1, 0.001)
+    assert "\n" not in str(err.value)

@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import EbgError
 from ..errors import check_positive as _check
 from ..physics import C0, MU0
 from ..stackup import Stackup
@@ -157,11 +158,17 @@ def pair_lines(stackup: Stackup, width_mm: float, spacing_mm: float, copper: boo
     ``copper`` False makes the strips perfect conductors."""
     planes = stackup.planes
     er, tan_d = planes[0].pair.er, planes[0].pair.tan_d
-    if stackup.stripline:
-        even, odd = stripline_coupled(width_mm, spacing_mm, planes[0].pair.h + planes[1].pair.h, er)
-    else:
-        h = planes[0].pair.h
-        even, odd = microstrip_coupled(width_mm / h, spacing_mm / h, er)
+    h = planes[0].pair.h + planes[1].pair.h if stackup.stripline else planes[0].pair.h
+    try:
+        if stackup.stripline:
+            even, odd = stripline_coupled(width_mm, spacing_mm, h, er)
+        else:
+            even, odd = microstrip_coupled(width_mm / h, spacing_mm / h, er)
+    except (OverflowError, ZeroDivisionError, ValueError):
+        raise EbgError(f"pair.width = {width_mm:g} mm, pair.spacing = {spacing_mm:g} mm over "
+                       f"{'both pair dielectrics' if stackup.stripline else 'stackup.pair_h'} = {h:g} mm: outside "
+                       "the range the coupled-line formulas can evaluate; use proportions of a real pair "
+                       "(width and spacing from about 0.01 to 100 times the height)") from None
     return CoupledLines(even, odd, er, tan_d, width_mm, stackup.stripline, COPPER_S_PER_M if copper else None)
 
 
