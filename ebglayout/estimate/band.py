@@ -35,12 +35,13 @@ import shapely
 from shapely import affinity
 from shapely.geometry import Polygon
 
+from .. import CAUTION as COMPLIANCE_CAUTION
 from ..layout import Layout, PlacedCell
 from ..units import GRID_MM, format_hz, format_length, round_hz
 from .cavity import polygon_modes, rect_modes
 from .lumped import lc_notch
 
-CAUTION = "estimate for placement and review, not a substitute for a field solve or measurement"
+CAUTION = f"estimate for placement and review, not a substitute for a field solve or measurement; {COMPLIANCE_CAUTION}"
 INTERACTION = 0.3
 """Relative distance between the LC and cavity resonances below which the two are said to interact."""
 

@@ -14,7 +14,6 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from .. import CAUTION as COMPLIANCE_CAUTION
 from ..cells.bridged import bridged_cell
 from ..cells.shape import rectangle
 from ..errors import EbgError, SpecError
@@ -491,7 +490,7 @@ def size_for_band(low_hz: float, high_hz: float, depth_db: float, er: float, pai
             "guaranteed_stopband_hz": model["tolerance"]["guaranteed_stopband_hz"],
             "nominal_scc21": model["scc21"], "pair": list(pair), "tan_d": tan_d, "pair_h_mm": pair_h or h,
             "centre_patch": base["patch"], "model_caution": model["model_caution"],
-            "caution": f"{CAUTION}; {COMPLIANCE_CAUTION}"}
+            "caution": CAUTION}
 
 
 def format_band_sizing(result: dict, units: str = "mm") -> str:
