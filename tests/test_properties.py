@@ -73,9 +73,11 @@ def test_engine_builds_valid_geometry_or_refuses(data):
 
 
 MIN_BUILT = 10
-"""Each style must build at least this many random layouts, so the invariants above are really exercised.
-Counted, not a share: hypothesis's example mix shifts slightly with what ran before it in the same process
-(alone: straight 26 of 46, bridged 20 of 51, folded 22 of 53 build; in the full suite folded 15 of 64)."""
+MIN_BUILT_SHARE = 0.15
+"""Each style must build at least this many random layouts, and this share of the specs drawn for it, so the
+invariants above are really exercised. Hypothesis's example mix shifts a little with what ran before it in the
+same process (alone: straight 26 of 46, bridged 20 of 51, folded 22 of 53 build; in the full suite folded once
+15 of 64), so the bounds sit below the lowest seen, and fail if building broke for a style."""
 
 
 def test_enough_random_specs_build_per_style(monkeypatch):
@@ -97,4 +99,4 @@ def test_enough_random_specs_build_per_style(monkeypatch):
     monkeypatch.setattr(sys.modules[__name__], "build_layout", counting_build)
     test_engine_builds_valid_geometry_or_refuses()
     for style in ("straight", "bridged", "folded"):
-        assert built[style] >= MIN_BUILT, (style, built[style], drawn[style])
+        assert built[style] >= max(MIN_BUILT, MIN_BUILT_SHARE * drawn[style]), (style, built[style], drawn[style])
