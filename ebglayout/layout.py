@@ -42,6 +42,9 @@ class PlacedCell:
     patch: Polygon
     bridges: tuple[Polygon, ...]
     outer: Polygon
+    slot: tuple[Polygon, ...] = ()
+    """The cell's slot pieces, cut in the cell's own frame before turning (bridged cells only; see
+    ``_placed_cells``)."""
 
 
 @dataclass(frozen=True)
@@ -133,12 +136,28 @@ def _placed_cells(spec: FilterSpec, placements) -> list[PlacedCell]:
     for size in dict.fromkeys(cp.size for cp in placements):
         rows = [k for k, cp in enumerate(placements) if cp.size == size]
         shape = builder(spec, size)
+        pieces = _slot_pieces(shape)
         roles = [place_polygons(g, centres[rows], turns[rows]) for g in (shape.patch, shape.outer, *shape.bridges)]
+        slots = [place_polygons(g, centres[rows], turns[rows]) for g in pieces]
         for j, k in enumerate(rows):
-            placed[k] = tuple(role[j] for role in roles)
+            placed[k] = (tuple(role[j] for role in roles), tuple(piece[j] for piece in slots))
     return [PlacedCell(index=cp.index, centre=tuple(centres[k].tolist()), rotation_deg=cp.rotation_deg, size=cp.size,
-                       patch=placed[k][0], bridges=tuple(placed[k][2:]), outer=placed[k][1])
+                       patch=placed[k][0][0], bridges=tuple(placed[k][0][2:]), outer=placed[k][0][1],
+                       slot=placed[k][1])
             for k, cp in enumerate(placements)]
+
+
+def _slot_pieces(shape) -> list[Polygon]:
+    """A bridged cell's slot cut in its own frame: outer edge minus patch and bridges.
+
+    Each vertex is turned and rounded to the grid on its own, so a bridge end lying on the middle of the outer
+    edge (or of a pocket's floor) can land a fraction of a grid step off that edge once turned, leaving a sliver
+    of slot that cuts the bridge off.  Cut before turning, the slot's corners at a bridge are the bridge's own
+    corners and land where the bridge's do.  Cells without bridges have no such junction: none returned."""
+    if not shape.bridges:
+        return []
+    cut = shape.outer.difference(unary_union([shape.patch, *shape.bridges]))
+    return [g for g in getattr(cut, "geoms", [cut]) if isinstance(g, Polygon) and not g.is_empty]
 
 
 def place_polygons(poly: Polygon, centres: np.ndarray, turns: np.ndarray) -> np.ndarray:
@@ -175,7 +194,10 @@ def build_layout(spec: FilterSpec) -> Layout:
     patch = as_multipolygon(_union([c.patch for c in cells]))
     bridge = as_multipolygon(_union([b for c in cells for b in c.bridges]))
     outline = as_multipolygon(_union([c.outer for c in cells]))
-    slot = as_multipolygon(outline.difference(unary_union([patch, bridge]) if not bridge.is_empty else patch))
+    if bridge.is_empty:
+        slot = as_multipolygon(outline.difference(patch))
+    else:
+        slot = as_multipolygon(_union([piece for c in cells for piece in c.slot]))
     cuts = tuple(PlaneCut(layer, slot, patch, bridge, outline) for layer in spec.plane_layers)
 
     centre = polyline_of(route)
