@@ -22,8 +22,10 @@ from shapely.geometry import LineString, box
 
 from ebglayout.errors import SpecError
 from ebglayout.kicad.board import parse_board, read_board
-from ebglayout.kicad.pairs import (BoardPair, cavity, find_pairs, obstacles, pair_nets, pair_spec_dict, stackup_notes,
-                                   plane_layers_for, reference_layers)
+from ebglayout.kicad.context import obstacles
+from ebglayout.kicad.pair_spec import pair_spec_dict
+from ebglayout.kicad.pairs import BoardPair, find_pairs, pair_nets
+from ebglayout.kicad.planes import cavity, plane_layers_for, reference_layers, stackup_notes
 from ebglayout.layout import build_layout
 from ebglayout.path import offset_pieces, piece_points, polyline_of
 from ebglayout.spec import Arc, Line, spec_from_dict
@@ -389,7 +391,7 @@ def test_obstacles_under_the_l0_filter(sample):
 
 def test_close_pairs_equal_brute_force():
     """The x-sweep that joins track ends finds exactly the pairs a brute-force distance matrix finds."""
-    from ebglayout.kicad.pairs import _close_pairs
+    from ebglayout.kicad.pair_runs import _close_pairs
 
     rng = np.random.default_rng(12)
     for n in (0, 1, 2, 50, 800):

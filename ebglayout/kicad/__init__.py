@@ -7,8 +7,8 @@ from __future__ import annotations
 
 _EXPORTS = {
     "Board": "board", "BoardError": "board", "parse_board": "board", "read_board": "board",
-    "BoardPair": "pairs", "find_pairs": "pairs", "obstacles": "pairs", "pair_spec_dict": "pairs",
-    "reference_layers": "pairs",
+    "BoardPair": "pairs", "find_pairs": "pairs", "obstacles": "context", "pair_spec_dict": "pair_spec",
+    "reference_layers": "planes",
 }
 __all__ = sorted(_EXPORTS)
 

@@ -20,23 +20,23 @@ from pathlib import Path
 import numpy as np
 import shapely
 from shapely.affinity import affine_transform
-from shapely.geometry import LineString
-from shapely.ops import linemerge
 
 from ..checks import CheckReport, run_checks
 from ..checks.rules import CheckContext, RuleResult
-from ..errors import BoardError, EbgError, SpecError, located
-from ..layout import Layout, build_layout, trace_from_line, with_copper
+from ..errors import EbgError, SpecError, located
+from ..layout import Layout, build_layout, with_copper
 from ..outputs import StagedOutputs
-from ..path import piece_points, polyline_of
+from ..path import polyline_of
 from ..pipeline import FilterResult, can_fork, output_names, write_filter
-from ..spec import MAX_NAME_BYTES, Arc, read_toml, spec_from_dict
+from ..spec import MAX_NAME_BYTES, read_toml, spec_from_dict
 from .board import Board, read_board
+from .context import board_context, board_traces, reference_planes
 from .footprint import DESIGN_PROPERTY, board_footprint_text, footprint_origin
 from .insert import board_version, fill_risks, insert_footprints, plane_net, zone_priority_for
-from .pairs import (BoardPair, board_stackup, find_pairs, nearest_planes, obstacles, pair_nets, pair_spec_dict,
-                    plane_layers_for, stackup_notes)
+from .pair_spec import pair_spec_dict
+from .pairs import BoardPair, find_pairs, pair_nets
 from .placed import board_cuts, placed_results
+from .planes import board_stackup, nearest_planes, stackup_notes
 from .rules import merge_rules, rules_text
 from .sexpr import error_at, unescape
 
@@ -136,72 +136,6 @@ def select_pairs(pairs: list[BoardPair], request: Request) -> list[BoardPair]:
     if not found:
         raise SpecError("match", request.match, "matches no differential pair on this board")
     return found
-
-
-def net_lines(board: Board, net: str, layer: str) -> list[LineString]:
-    """One net's tracks on one layer chained into polylines (arcs as chords within 0.25 um)."""
-    ni, li = board.net_index(net), board.layer_index(layer)
-    if ni is None or li is None:
-        return []
-    seg, arc = board.segments, board.arcs
-    rows = board.net_rows("segments", ni)
-    rows = rows[seg.layer[rows] == li]
-    lines = [LineString([tuple(a), tuple(b)]) for a, b in zip(seg.start[rows].tolist(), seg.end[rows].tolist())]
-    rows = board.net_rows("arcs", ni)
-    rows = rows[arc.layer[rows] == li]
-    for s, m, e in zip(arc.start[rows].tolist(), arc.mid[rows].tolist(), arc.end[rows].tolist()):
-        lines.append(LineString(piece_points(Arc(tuple(s), tuple(m), tuple(e)))))
-    if not lines:
-        return []
-    merged = linemerge(lines)
-    return list(getattr(merged, "geoms", [merged]))
-
-
-def cut_extent(layout: Layout):
-    """Where the filter is: its cuts, or its cells where a board holds no cut of it any more."""
-    extent = shapely.union_all([c.outline for c in layout.cuts])
-    return extent if not extent.is_empty else shapely.union_all([c.outer for c in layout.cells])
-
-
-def board_traces(board: Board, layout: Layout, pair: BoardPair) -> tuple:
-    """The pair's real copper near the cut, as traces the crossing code can measure."""
-    area = cut_extent(layout).buffer(1.0)
-    traces = []
-    for polarity, net in (("P", pair.net_p), ("N", pair.net_n)):
-        candidates = net_lines(board, net, pair.layer)
-        if not candidates:
-            raise BoardError(f"{board.name}: net {net} has no tracks on {pair.layer}")
-        line = max(candidates, key=lambda g: g.intersection(area).length)
-        traces.append(trace_from_line(polarity, net, pair.layer, pair.width, line))
-    return tuple(traces)
-
-
-def reference_planes(board: Board) -> dict[str, tuple[str, ...]]:
-    """Each copper layer's nearest copper-zone layers above and below (of any net)."""
-    # A signal layer's return current runs on the nearest plane of any net, so references ignore the net.
-    return {layer: plane_layers_for(board, layer, None)[0] for layer in board.copper_layers}
-
-
-def board_context(board: Board, layout: Layout, pair: BoardPair, estimate=None,
-                  references: dict[str, tuple[str, ...]] | None = None) -> CheckContext:
-    """Other copper near the cut, the board outline, whether the pair has planes on both sides, and references.
-
-    ``references`` is ``reference_planes(board)``, passed in when many filters share one board.
-    """
-    spec = layout.spec
-    bounds = cut_extent(layout).bounds
-    tracks, vias = obstacles(board, bounds, spec.plane_layers, exclude_nets=spec.nets)
-    found, _ = plane_layers_for(board, spec.pair_layer, spec.plane_net)
-    outline = board.outline
-    if outline is not None and outline.geom_type == "MultiPolygon":
-        centre = shapely.Point(layout.cells[0].centre)
-        outline = min(outline.geoms, key=lambda g: g.distance(centre))
-    if references is None:
-        references = reference_planes(board)
-    pair_planes = tuple(nearest_planes(board, pair.layer, polyline_of(pair.path)))
-    return CheckContext(tracks=tracks, vias=vias, plane_outline=outline, sandwiched=len(found) == 2,
-                        references=references, copper_layers=board.copper_layers, pair_planes=pair_planes,
-                        estimate=estimate)
 
 
 def board_skeleton(board: Board, nets: bool = False, footprints: bool = False) -> str:
