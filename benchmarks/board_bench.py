@@ -309,9 +309,11 @@ def child(argv: list[str]) -> None:
         result = {"seconds": time.perf_counter() - start}
     elif job == "imports":
         import ebglayout.estimate.band
-        import ebglayout.kicad.workflow
+        import ebglayout.kicad.place
+        import ebglayout.kicad.recheck
 
-        result = {"modules": [ebglayout.estimate.band.__name__, ebglayout.kicad.workflow.__name__]}
+        result = {"modules": [ebglayout.estimate.band.__name__, ebglayout.kicad.place.__name__,
+                              ebglayout.kicad.recheck.__name__]}
     else:
         from contextlib import redirect_stdout
 

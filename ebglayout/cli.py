@@ -218,7 +218,7 @@ def _check(args) -> int:
     if (args.spec is None) == (args.board is None):
         raise EbgError("check: give either a SPEC file or --board BOARD")
     if args.board is not None:
-        from .kicad.workflow import board_files
+        from .kicad.plan import board_files
 
         sources = board_files(args.board)
     else:
@@ -228,7 +228,7 @@ def _check(args) -> int:
         if junit:
             junit.require_free([args.junit.name])
         if args.board is not None:
-            from .kicad.workflow import check_board
+            from .kicad.recheck import check_board
 
             reports = check_board(args.board, jobs=_jobs(args.jobs))
             if not reports:  # a note, not a result: --json keeps stdout to the JSON alone
@@ -312,7 +312,7 @@ def _jobs(asked: int) -> int:
 
 def _pairs(args) -> int:
     from .kicad.board import read_board
-    from .kicad.workflow import pair_table
+    from .kicad.pairs import pair_table
     from .units import parse_length
 
     rows = pair_table(read_board(args.board), parse_length(args.min_run, "--min-run"))
@@ -337,7 +337,8 @@ def _pairs(args) -> int:
 
 
 def _place(args) -> int:
-    from .kicad.workflow import Request, load_plan, load_spec_dict, place
+    from .kicad.place import place
+    from .kicad.plan import Request, load_plan, load_spec_dict
 
     if args.plan is not None:
         if args.pair or args.spec or args.stackup_from_spec:

@@ -17,16 +17,20 @@ from . import compat
 
 
 def _ebglayout():
-    """Import ebglayout, or explain how to install it into KiCad's Python."""
+    """Import ebglayout's KiCad modules, or explain how to install it into KiCad's Python."""
     try:
-        from ebglayout.kicad import footprint, workflow  # noqa: F401
+        import ebglayout.kicad.board
+        import ebglayout.kicad.footprint
+        import ebglayout.kicad.insert
+        import ebglayout.kicad.pairs
+        import ebglayout.kicad.place
+        import ebglayout.kicad.plan
+        import ebglayout.kicad.recheck
     except ImportError as err:
         raise RuntimeError(
             f"ebglayout cannot be imported in KiCad's Python ({err}). Install it and its dependencies into the "
             "Python KiCad uses (see the ebglayout README, section 'KiCad')") from None
-    from ebglayout.kicad import footprint, workflow
-
-    return workflow, footprint
+    return ebglayout.kicad
 
 
 def _saved_copy(board, folder: str) -> Path:
@@ -45,7 +49,7 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
     in only once the footprint sits on the board, and a failure on the board
     takes the footprint out again.
     """
-    workflow, footprint = _ebglayout()
+    kicad = _ebglayout()
     rules_path = _rules_path(board)
     if rules_path is None:
         raise RuntimeError("save the board once first: the fill rule is written beside it as <board>.kicad_dru")
@@ -54,32 +58,32 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
     if not nets:
         raise RuntimeError("select one track of the differential pair first")
     with tempfile.TemporaryDirectory(prefix="ebglayout-") as tmp:
-        copy = workflow.read_board(_saved_copy(board, tmp))
-        pairs = workflow.find_pairs(copy)
+        copy = kicad.board.read_board(_saved_copy(board, tmp))
+        pairs = kicad.pairs.find_pairs(copy)
         chosen = [bp for bp in pairs if bp.net_p in nets or bp.net_n in nets]
         if not chosen:
             raise RuntimeError(f"no differential pair found for the selected net(s) {', '.join(nets)}")
         pair = max(chosen, key=lambda bp: bp.length)
-        request = workflow.Request(workflow.load_spec_dict(spec_path), spec_path, pair=(pair.net_p, pair.net_n))
-        placement = workflow.plan_placement(copy, [request], _existing_rules(board))
+        request = kicad.plan.Request(kicad.plan.load_spec_dict(spec_path), spec_path, pair=(pair.net_p, pair.net_n))
+        placement = kicad.place.plan_placement(copy, [request], _existing_rules(board))
         placed = placement.filters[0]
         layout = placed.result.layout
         library = Path(tmp) / "ebglayout.pretty"
         library.mkdir()
         name = layout.spec.name
-        text = footprint.footprint_text(layout, design=placed.design)
+        text = kicad.footprint.footprint_text(layout, design=placed.design)
         (library / f"{name}.kicad_mod").write_text(text, encoding="utf-8")
         fp = pcbnew.FootprintLoad(str(library), name)
         if fp is None:
             raise RuntimeError("KiCad could not load the generated footprint")
-    priority = workflow.zone_priority_for(placement.board_text, layout, layout.spec.plane_net)
+    priority = kicad.insert.zone_priority_for(placement.board_text, layout, layout.spec.plane_net)
     from ebglayout.outputs import atomic_path
 
     with atomic_path(rules_path) as staged:  # the rules file changes only if the footprint was added
         staged.write_text(placement.rules_text, encoding="utf-8")
         board.Add(fp)
         try:
-            _set_up(board, fp, placed.reference, layout, footprint.footprint_origin(layout), priority)
+            _set_up(board, fp, placed.reference, layout, kicad.footprint.footprint_origin(layout), priority)
         except Exception:
             board.Remove(fp)
             # Remove hands the footprint to Python; its destructor then left the board's footprint list
@@ -95,13 +99,13 @@ def place_under_selection(board, spec_path: str, tracks=None) -> dict:
 
 def recheck(board) -> list:
     """Re-check every ebglayout filter on the board as it is now; returns the check reports."""
-    workflow, _ = _ebglayout()
+    kicad = _ebglayout()
     with tempfile.TemporaryDirectory(prefix="ebglayout-") as tmp:
         path = _saved_copy(board, tmp)
         rules = _existing_rules(board)
         if rules is not None:
             path.with_suffix(".kicad_dru").write_text(rules, encoding="utf-8")
-        return workflow.check_board(path)
+        return kicad.recheck.check_board(path)
 
 
 def _rules_path(board) -> Path | None:

@@ -355,7 +355,7 @@ def placed_slot_reports(pcbnew, path) -> list[tuple[str, str, dict]]:
     Each filter is rebuilt from the design its footprint carries (property ebglayout_spec).
     """
     from ebglayout.kicad.board import read_board
-    from ebglayout.kicad.workflow import placed_designs
+    from ebglayout.kicad.recheck import placed_designs
 
     out = []
     for footprint, design in placed_designs(read_board(path)):

@@ -359,7 +359,7 @@ def test_check_board_names_the_footprint_of_a_broken_stored_design(tmp_path, cap
 
 def test_placed_filter_names_stay_within_the_name_limit():
     """A long hierarchical net name must not make `place` refuse its own filter name (spec.MAX_NAME_BYTES)."""
-    from ebglayout.kicad.workflow import _filter_name
+    from ebglayout.kicad.place import _filter_name
     from ebglayout.spec import MAX_NAME_BYTES, spec_from_dict
 
     base = "/Top/Very_Long_Hierarchical_Sheet_Name/Another_Level/HX2_LANE0_TRANSMIT_DIFFERENTIAL"

@@ -12,7 +12,7 @@ import pytest
 
 from ebglayout.cli import main
 from ebglayout.kicad.board import read_board
-from ebglayout.kicad.workflow import check_board, placed_designs
+from ebglayout.kicad.recheck import check_board, placed_designs
 
 from conftest import ROOT, SAMPLES
 
@@ -194,21 +194,21 @@ def _worker_dies(indices):
 def test_check_board_in_workers_reports_as_one_process(board_copy, tmp_path, capsys, monkeypatch):
     """Filters shared with forked workers give the same reports, in board order, as one process, also when a
     worker dies; a filter that fails inside a worker raises its own error here, as the serial run does."""
-    import ebglayout.kicad.workflow as workflow
+    import ebglayout.kicad.recheck as recheck
 
     usb = usb_spec(tmp_path)
     out = place_plan(board_copy, tmp_path, capsys, f'[[filter]]\nspec = "{STRAIGHT.as_posix()}"\nmatch = "HX2_L*"\n\n'
                      f'[[filter]]\nspec = "{usb.as_posix()}"\nmatch = "HX2_USB*"\n')
-    monkeypatch.setattr(workflow, "FILTERS_PER_PROCESS", 1)
+    monkeypatch.setattr(recheck, "FILTERS_PER_PROCESS", 1)
     serial = [r.to_json() for r in check_board(out, jobs=1)]
     assert len(serial) == 3
     assert [r.to_json() for r in check_board(out, jobs=2)] == serial
     assert [r.to_json() for r in check_board(out, jobs=3)] == serial
 
-    monkeypatch.setattr(workflow, "_recheck_in_worker", _worker_dies)
+    monkeypatch.setattr(recheck, "_recheck_in_worker", _worker_dies)
     assert [r.to_json() for r in check_board(out, jobs=2)] == serial
     monkeypatch.undo()
-    monkeypatch.setattr(workflow, "FILTERS_PER_PROCESS", 1)
+    monkeypatch.setattr(recheck, "FILTERS_PER_PROCESS", 1)
 
     text = out.read_text()
     broken = tmp_path / "hub_broken.kicad_pcb"

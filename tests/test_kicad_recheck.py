@@ -20,7 +20,7 @@ from shapely.ops import unary_union
 from ebglayout.cli import main
 from ebglayout.kicad.board import parse_board, read_board
 from ebglayout.kicad.placed import board_cuts
-from ebglayout.kicad.workflow import _cells_moved, check_board, placed_designs
+from ebglayout.kicad.recheck import _cells_moved, check_board, placed_designs
 from ebglayout.layout import build_layout
 from ebglayout.spec import spec_from_dict
 

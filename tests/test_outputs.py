@@ -221,7 +221,7 @@ def test_of_two_place_runs_to_one_board_one_wins(tmp_path):
     shutil.copyfile(BOARD, board)
     argv = ["place", str(board), "--pair", "HX2_L0_TX_P", "HX2_L0_TX_N", "--spec", str(STRAIGHT),
             "--out", str(tmp_path / "new.kicad_pcb")]
-    first, _ = slowed(tmp_path, "ebglayout.kicad.workflow.plan_placement", argv)
+    first, _ = slowed(tmp_path, "ebglayout.kicad.place.plan_placement", argv)
     second = cli(*argv)
     assert release(first) == 0
     assert second.returncode == 2 and "another ebglayout run" in second.stderr

@@ -326,7 +326,7 @@ def preload() -> None:
     import importlib
 
     for name in ("ebglayout.cli", "ebglayout.pipeline", "ebglayout.estimate.band", "ebglayout.export.dxf",
-                 "ebglayout.export.gds", "ebglayout.export.preview", "ebglayout.kicad.workflow",
+                 "ebglayout.export.gds", "ebglayout.export.preview", "ebglayout.kicad.place", "ebglayout.kicad.recheck",
                  "ebglayout.kicad.footprint", "ebglayout.kicad.rules", "ebglayout.checks.junit"):
         importlib.import_module(name)
 

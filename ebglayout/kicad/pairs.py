@@ -1,4 +1,4 @@
-"""Differential pairs on a board: find them by net name, rebuild their centre-line, hand them to the engine.
+"""Differential pairs on a board: find them by net name, rebuild their centre-line, list them (`ebglayout pairs`).
 
 Centre-line: each net's tracks on a layer are chained into one ordered run of
 lines and arcs; pieces of the two traces that run parallel at the pair's pitch
@@ -32,7 +32,7 @@ from ..path import CentreLine, arc_geometry, offset_pieces, piece_length, piece_
 from ..spec import Arc, Line
 from .board import Board
 from .pair_runs import MATCH_TOLERANCE_MM, Piece, _chains, _net_items, _reverse, _Run, _runs, _wrap
-from .planes import plane_layers_for
+from .planes import board_stackup, nearest_planes, plane_layers_for
 
 SUFFIXES = (("_DP", "_DN"), ("_P", "_N"), ("+", "-"), ("P", "N"))
 """Net-name endings of a pair's positive and negative net, tried in this order (common practice)."""
@@ -129,6 +129,35 @@ def find_pairs(board: Board, plane_net: str = "GND", max_gap: float = 1.0, min_l
             for run in _runs(p_chains, n_chains, max_gap, min_length):
                 pairs.append(_board_pair(board, base, net_p, net_n, layer, run, length_p, length_n, plane_net))
     return sorted(pairs, key=lambda bp: (bp.base, board.copper_layers.index(bp.layer), bp.path[0].start))
+
+
+def pair_table(board: Board, min_run: float = 2.0) -> list[dict]:
+    """`ebglayout pairs`: every pair found, with the straight runs long enough for a filter.
+
+    ``planes`` are the pair's nearest planes of the GND net, ``references`` its
+    nearest planes of any net (the return path; `place` cuts only those), and
+    ``stackup`` the stack-up keys `place` takes from the board for a filter in
+    the references (``planes.board_stackup``), without "stackup.".
+    """
+    rows = []
+    for bp in find_pairs(board):
+        runs = [r for r in bp.straight_runs if r.length >= min_run]
+        region = polyline_of(bp.path)
+        references = nearest_planes(board, bp.layer, region)
+        rows.append({
+            "pair": bp.base, "nets": [bp.net_p, bp.net_n], "layer": bp.layer,
+            "width": round(bp.width, 6), "spacing": round(bp.spacing, 6),
+            "length": round(bp.length, 4), "length_p": round(bp.length_p, 4), "length_n": round(bp.length_n, 4),
+            "planes": list(bp.plane_layers),
+            "references": references,
+            "stackup": {key: [round(v, 6) for v in value] if isinstance(value, list) else round(value, 6)
+                        for key, value in board_stackup(board, bp.layer, references, region).items()},
+            "straight_runs": [{"start": [round(r.start[0], 4), round(r.start[1], 4)],
+                               "end": [round(r.end[0], 4), round(r.end[1], 4)], "length": round(r.length, 4)}
+                              for r in runs],
+            "warnings": list(bp.warnings),
+        })
+    return rows
 
 
 # ---- centre-line ----
