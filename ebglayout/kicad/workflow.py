@@ -24,7 +24,7 @@ from shapely.geometry import LineString
 from shapely.ops import linemerge
 
 from ..checks import CheckReport, run_checks
-from ..checks.rules import CheckContext, RuleResult
+from ..checks.context import CheckContext, RuleResult
 from ..errors import BoardError, EbgError, SpecError, located
 from ..layout import Layout, build_layout, trace_from_line, with_copper
 from ..outputs import StagedOutputs
