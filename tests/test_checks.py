@@ -15,7 +15,7 @@ from shapely.affinity import translate
 from shapely.geometry import LineString, Polygon, box
 
 from ebglayout.checks import run_checks
-from ebglayout.checks.rules import CheckContext
+from ebglayout.checks.context import CheckContext
 from ebglayout.checks.widths import width_check
 from ebglayout.layout import PlaneCut, as_multipolygon, build_layout, trace_from_line, with_copper
 from ebglayout.spec import TrackObstacle, ViaObstacle, spec_from_dict

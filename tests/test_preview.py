@@ -23,7 +23,7 @@ from shapely.ops import unary_union
 
 from ebglayout.checks import Finding
 from ebglayout.export import CAUTION
-from ebglayout.export.drawing import COLOURS, SIZE_PX, TRACE_ALPHA
+from ebglayout.export.primitives import COLOURS, SIZE_PX, TRACE_ALPHA
 from ebglayout.export.preview import write_preview
 from ebglayout.export.svg import DECIMALS
 

@@ -15,8 +15,9 @@ from shapely.affinity import affine_transform
 from shapely.geometry import LineString, Point, Polygon, box
 from shapely.ops import unary_union
 
-from ebglayout.export.drawing import CAP, NOTCH_BOX, Fill, Markers, Text, build_drawing
+from ebglayout.export.drawing import NOTCH_BOX, build_drawing
 from ebglayout.export.png import _font
+from ebglayout.export.primitives import CAP, Fill, Markers, Text
 from ebglayout.layout import build_layout
 from ebglayout.pipeline import make_filter
 from ebglayout.spec import spec_from_dict
@@ -157,7 +158,7 @@ def test_notch_plot_shows_the_models_notch_and_guaranteed_stopband(sample_layout
     """The preview's notch plot draws the circuit model's nominal notch as a line and each guaranteed band as a
     shaded span, on the same linear GHz axis as the target line (checked by the ratio of their page spans)."""
     from ebglayout.estimate import estimate_layout
-    from ebglayout.export.drawing import COLOURS, Polyline
+    from ebglayout.export.primitives import COLOURS, Polyline
 
     layout = sample_layouts["hx2_l1_rx_folded"]
     notch = estimate_layout(layout, model=True).to_json()

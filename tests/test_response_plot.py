@@ -10,7 +10,7 @@ import pytest
 
 from PIL import Image
 
-from ebglayout.export.drawing import COLOURS, SIZE_PX
+from ebglayout.export.primitives import COLOURS, SIZE_PX
 from ebglayout.export.response_plot import plot_frame, source_label, write_response_plot
 from ebglayout.response import corners_json, db20, response_json
 from ebglayout.sparams import mixed_mode

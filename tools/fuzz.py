@@ -327,7 +327,8 @@ def preload() -> None:
 
     for name in ("ebglayout.cli", "ebglayout.pipeline", "ebglayout.estimate.band", "ebglayout.export.dxf",
                  "ebglayout.export.gds", "ebglayout.export.preview", "ebglayout.kicad.place", "ebglayout.kicad.recheck",
-                 "ebglayout.kicad.footprint", "ebglayout.kicad.rules", "ebglayout.checks.junit"):
+                 "ebglayout.kicad.footprint", "ebglayout.kicad.rules", "ebglayout.checks.junit",
+                 "ebglayout.checks.rules"):
         importlib.import_module(name)
 
 

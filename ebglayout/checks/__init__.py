@@ -117,7 +117,8 @@ def run_checks(layout, context=None, estimate=None) -> CheckReport:
     """Run every rule on a layout; ``context`` adds board copper, outline and stack-up (default: from the spec)."""
     from dataclasses import replace
 
-    from .rules import RULE_FUNCTIONS, context_from_spec
+    from .context import context_from_spec
+    from .rules import RULE_FUNCTIONS
 
     ctx = context if context is not None else context_from_spec(layout.spec)
     if estimate is not None:

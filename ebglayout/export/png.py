@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image, ImageChops, ImageDraw, ImageFont
 
-from .drawing import COLOURS, SIZE_PX, Fill, Markers, Polyline, Text, View, marker_outline
+from .primitives import COLOURS, SIZE_PX, Fill, Markers, Polyline, Text, View, marker_outline
 
 PNG_COMPRESS_LEVEL = 3
 """zlib level for the PNG: on a palette image level 3 costs about what level 1 does and writes ~15 % less."""

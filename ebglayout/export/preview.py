@@ -7,7 +7,8 @@ from typing import Sequence
 
 from ..layout import Layout
 from . import atomic_path
-from .drawing import SIZE_PX, build_drawing, drawing_title
+from .drawing import build_drawing, drawing_title
+from .primitives import SIZE_PX
 from .png import PNG_COMPRESS_LEVEL, png_image
 from .svg import svg_text
 

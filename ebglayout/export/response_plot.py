@@ -1,5 +1,5 @@
 """|Scc21| and |Sdd21| against frequency from a result file's content (``response.response_json``), drawn with the
-preview's primitives (``drawing.py``) and written by the same two back-ends: SVG by hand, PNG with Pillow.
+preview's primitives (``primitives.py``) and written by the same two back-ends: SVG by hand, PNG with Pillow.
 
 The page shows both curves in dB against GHz, the threshold line, the Scc21 stopband shaded (and, when the data
 carry a ``tolerance`` entry from ``response.corners_json``, the band every corner rejects), the target marked, the
@@ -13,7 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from ..response import DB_FLOOR
-from .drawing import CAP, COLOURS, Markers, Polyline, Text, _axes, _legend_items, _rect, _ticks
+from .chart import axes, legend_items, ticks
+from .primitives import CAP, COLOURS, Markers, Polyline, Text, page_rect
 from .preview import write_png, write_svg
 
 PLOT_BOX = (110.0, 120.0, 1060.0, 790.0)
@@ -80,17 +81,17 @@ def build_response_drawing(data: dict, name: str = "") -> list:
     entries: list = []
     if cc["stopband_hz"] is not None:
         x0, x1 = (float(v) for v in frame.x(np.asarray(cc["stopband_hz"]) / 1e9))
-        items.append(_rect(x0, top, x1, bottom, COLOURS["band"], role="stopband"))
+        items.append(page_rect(x0, top, x1, bottom, COLOURS["band"], role="stopband"))
         entries.append((f"Scc21 stopband ({cc['threshold_db']:g} dB)", ("rect", COLOURS["band"], {})))
     tolerance = data.get("tolerance") or {}
     for low, high in tolerance.get("guaranteed_stopband_hz", []):
         x0, x1 = (float(v) for v in frame.x(np.array([low, high]) / 1e9))
-        items.append(_rect(x0, top, x1, bottom, GUARANTEED_COLOUR, role="guaranteed", hatch=COLOURS["band"]))
+        items.append(page_rect(x0, top, x1, bottom, GUARANTEED_COLOUR, role="guaranteed", hatch=COLOURS["band"]))
     if tolerance.get("guaranteed_stopband_hz"):
         count = len(tolerance.get("corners", []))
         entries.append((f"rejected at all {count} corners", ("rect", GUARANTEED_COLOUR, {"hatch": COLOURS["band"]})))
-    xticks = _ticks(frame.ghz0, frame.ghz1, (right - left) / 110)
-    yticks = _ticks(frame.db0, frame.db1, (bottom - top) / 60)
+    xticks = ticks(frame.ghz0, frame.ghz1, (right - left) / 110)
+    yticks = ticks(frame.db0, frame.db1, (bottom - top) / 60)
     for value, _ in xticks:
         x = float(frame.x(value))
         items.append(Polyline(np.array([(x, top), (x, bottom)]), COLOURS["grid"], 0.6, role="grid"))
@@ -115,9 +116,9 @@ def build_response_drawing(data: dict, name: str = "") -> list:
     notch = (float(frame.x(cc["notch_hz"] / 1e9)), float(frame.y(cc["depth_db"])))
     items.append(Markers((notch,), "ring", 13.0, None, COLOURS["notch"], 2.2, "notch"))
     entries.append(("Scc21 notch", ("marker", "ring", 11.0, None, COLOURS["notch"], 2.2)))
-    items += _axes(frame.box, [(float(frame.x(v)), s) for v, s in xticks],
-                   [(float(frame.y(v)), s) for v, s in yticks], "frequency (GHz)", "|S| (dB)")
-    items += _legend_items(entries, *LEGEND_AT, row=21.0, columns=1, size=14.0)
+    items += axes(frame.box, [(float(frame.x(v)), s) for v, s in xticks],
+                  [(float(frame.y(v)), s) for v, s in yticks], "frequency (GHz)", "|S| (dB)")
+    items += legend_items(entries, *LEGEND_AT, row=21.0, columns=1, size=14.0)
     x, y = SUMMARY_AT
     for i, line in enumerate(_summary(data)):
         items.append(Text(x, y + 17.0 * i, line, 13, COLOURS["text"], mono=True))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from xml.sax.saxutils import escape
 
-from .drawing import COLOURS, SIZE_PX, Fill, Markers, Polyline, Text, marker_outline
+from .primitives import COLOURS, SIZE_PX, Fill, Markers, Polyline, Text, marker_outline
 
 DECIMALS = 4
 """Decimals of board coordinates (mm) in the SVG: 0.1 um, far below any etched feature."""

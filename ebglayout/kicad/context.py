@@ -16,7 +16,7 @@ import shapely
 from shapely.geometry import LineString
 from shapely.ops import linemerge
 
-from ..checks.rules import CheckContext
+from ..checks.context import CheckContext
 from ..errors import BoardError
 from ..layout import Layout, trace_from_line
 from ..path import piece_points, polyline_of

@@ -21,7 +21,7 @@ import shapely
 from shapely.geometry import MultiPolygon
 from shapely.ops import unary_union
 
-from ..checks.rules import RuleResult
+from ..checks.context import RuleResult
 from ..layout import Layout, PlaneCut, as_multipolygon
 from .board import Board, Footprint
 

@@ -19,7 +19,7 @@ import shapely
 from shapely.affinity import affine_transform
 
 from ..checks import CheckReport, run_checks
-from ..checks.rules import CheckContext, RuleResult
+from ..checks.context import CheckContext, RuleResult
 from ..errors import EbgError
 from ..layout import Layout, build_layout, with_copper
 from ..pipeline import can_fork
