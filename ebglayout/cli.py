@@ -422,7 +422,7 @@ def _size(args) -> int:
     row = dict(style=args.style, h=sizes["h"], bridge=bridge, slot=sizes["slot"], tan_d=args.tan_d, passes=args.passes,
                pair_h=parse_length(args.pair_h, "--pair-h", args.units) if args.pair_h else None)
     if args.band:
-        from .estimate.sizing import format_band_sizing, size_for_band
+        from .estimate.sizing_band import format_band_sizing, size_for_band
 
         low, high = _band(args.band)
         result = size_for_band(low, high, _decibels(args.reject), args.er, pair, max_cells=args.max_cells,
@@ -490,7 +490,7 @@ def _bridge(text: str, units: str) -> tuple[float, float, int]:
 
 
 def _refine(args) -> int:
-    from .estimate.sizing import format_refine, refine
+    from .estimate.refinement import format_refine, refine
     from .spec import load_spec
     from .units import parse_frequency
 
