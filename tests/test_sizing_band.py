@@ -15,7 +15,8 @@ from ebglayout.checks import run_checks
 from ebglayout.errors import EbgError
 from ebglayout.cli import main
 from ebglayout.estimate.rejection import model_rejection
-from ebglayout.estimate.sizing import format_band_sizing, row_spec, size_for_band
+from ebglayout.estimate.sizing import row_spec
+from ebglayout.estimate.sizing_band import format_band_sizing, size_for_band
 from ebglayout.layout import build_layout
 from ebglayout.response import guaranteed_stopband
 from ebglayout.spec import spec_from_dict
@@ -105,7 +106,8 @@ def test_refine_through_the_model_carries_its_error_to_the_new_size(name, observ
     from ebglayout.bundled import sample_specs
     from ebglayout.estimate.lines import mode_reference_ohm
     from ebglayout.estimate.network import filter_network
-    from ebglayout.estimate.sizing import MODEL_TOLERANCE, refine
+    from ebglayout.estimate.refinement import refine
+    from ebglayout.estimate.sizing import MODEL_TOLERANCE
     from ebglayout.response import db20, summarize
     from ebglayout.sparams import mixed_mode
     from ebglayout.spec import load_spec

@@ -8,7 +8,8 @@ from __future__ import annotations
 from .band import CAUTION, CellEstimate, Corner, Estimate, Mode, estimate_cell, estimate_layout, format_table
 from .cavity import C0, neumann_eigenvalues, polygon_modes, rect_modes
 from .lumped import lc_notch, plate_capacitance, strip_inductance
-from .sizing import refine, size_for_target
+from .refinement import refine
+from .sizing import size_for_target
 
 __all__ = [
     "C0", "CAUTION", "CellEstimate", "Corner", "Estimate", "Mode", "estimate_cell", "estimate_layout",
